@@ -1,0 +1,16 @@
+"""icgen: equilibrium N-body initial conditions for disk galaxies.
+
+Main entry points: :func:`load_model` (model file or dict -> :class:`GalaxyModel`).
+"""
+__version__ = "0.1.0"
+
+
+def __getattr__(name):
+    # Lazy imports keep ``import icgen`` light (numba kernels compile on first use).
+    if name in ("load_model", "GalaxyModel"):
+        from . import model
+        return getattr(model, name)
+    raise AttributeError(f"module 'icgen' has no attribute {name!r}")
+
+
+__all__ = ["load_model", "GalaxyModel", "__version__"]

@@ -1,0 +1,1 @@
+"""Diagnostics computed from a model (and later from snapshots): curves, tables, plots."""

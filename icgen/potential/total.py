@@ -1,0 +1,119 @@
+"""Total potential of a galaxy model: closed-form spheres, Dehnen & Binney (1998) thin
+layers of the disks, and one multipole expansion of everything else.
+
+Instead of interpolating Phi on an (R, z) grid, the expansion is kept as radial tables of
+Phi_l(r) (cubic Hermite in ln r) and summed over P_l(mu) at each point: it is smooth to
+all orders in angle, exact in the analytic parts, and as fast to evaluate (see
+DEVELOPERS.md). Midplane v_c, Omega and kappa are tabulated once and splined.
+"""
+import numpy as np
+from scipy.interpolate import CubicSpline
+
+from .. import defaults
+from ..units import G
+from . import kernels
+from .multipole import radial_grid, solve
+
+
+class GalaxyPotential:
+    """Potential of a list of components (profiles.* objects).
+
+    Parameters
+    ----------
+    components : list
+        Component objects with ``name``, ``analytic_terms()``, ``multipole_density()``.
+    lmax : int
+        Highest even harmonic for non-spherical densities.
+    """
+
+    def __init__(self, components, lmax=defaults.DISK_LMAX):
+        self.components = {c.name: c for c in components}
+        scales = [c.scale for c in components if c.scale > 0] or [1.0]
+        extents = [c.extent for c in components if c.extent > 0] or [1.0]
+        self.r_grid = radial_grid(defaults.RADIAL_INNER_FRACTION * min(scales),
+                                  defaults.RADIAL_OUTER_FACTOR * max(extents),
+                                  defaults.RADIAL_POINTS_PER_DECADE)
+        self.tables = {}
+        for c in components:
+            dens = c.multipole_density()
+            if dens is None:
+                continue
+            spherical = c.kind != "disk"
+            self.tables[c.name] = solve(dens, self.r_grid, 0 if spherical else lmax,
+                                        4 if spherical else defaults.ANGULAR_NODES, G)
+        self.total_table = _sum(self.tables)
+        self._build_midplane()
+
+    # -- evaluation -------------------------------------------------------------------
+    def evaluate(self, R, z, component=None):
+        """(Phi, F_R, F_z) at points (R, z) in kpc; units (km/s)^2 and (km/s)^2/kpc.
+
+        ``component`` limits the sum to one named component (None: all)."""
+        R = np.ascontiguousarray(np.broadcast_arrays(np.asarray(R, float), np.asarray(z, float))[0])
+        shape = R.shape
+        Rf = R.ravel()
+        zf = np.ascontiguousarray(np.broadcast_to(np.asarray(z, float), shape)).ravel()
+        phi, f_r, f_z = np.zeros_like(Rf), np.zeros_like(Rf), np.zeros_like(Rf)
+        names = list(self.components) if component is None else [component]
+        for name in names:
+            c = self.components[name]
+            for code, mass, a in c.analytic_terms():
+                kernels.add_spherical(Rf, zf, code, G * mass, a, phi, f_r, f_z)
+            if c.kind == "disk":
+                s0, r_d, r_t, w_t, z_d, code = c.thin_layer_params()
+                kernels.add_thin_layer(Rf, zf, 4 * np.pi * G * s0, r_d, r_t, w_t, z_d,
+                                       int(code), phi, f_r, f_z)
+        table = self.total_table if component is None else self.tables.get(component)
+        if table is not None:
+            kernels.add_multipole(Rf, zf, table.lnr0, table.h, table.r, *table.kernel_arrays(),
+                                  phi, f_r, f_z)
+        return phi.reshape(shape), f_r.reshape(shape), f_z.reshape(shape)
+
+    def potential(self, R, z, component=None):
+        """Phi (km/s)^2 at (R, z) kpc."""
+        return self.evaluate(R, z, component)[0]
+
+    def forces(self, R, z, component=None):
+        """(F_R, F_z) = -grad Phi in (km/s)^2/kpc."""
+        return self.evaluate(R, z, component)[1:]
+
+    def density(self, R, z, component=None):
+        """rho (Msun/kpc^3) of one component or the sum."""
+        names = list(self.components) if component is None else [component]
+        return sum(self.components[n].density(R, z) for n in names)
+
+    # -- midplane ---------------------------------------------------------------------
+    def _build_midplane(self):
+        r_max = max(c.extent for c in self.components.values()) or 100.0
+        R = np.geomspace(1e-3, r_max, defaults.MIDPLANE_POINTS)
+        self._mid_R = R
+        self._vc2 = {n: -R * self.forces(R, 0.0, n)[0] for n in self.components}
+        vc2 = -R * self.forces(R, 0.0)[0]
+        self._vc2_total = vc2
+        spline = CubicSpline(np.log(R), vc2)
+        kappa2 = spline(np.log(R), 1) / R**2 + 2 * vc2 / R**2
+        self._omega = CubicSpline(np.log(R), np.sqrt(np.maximum(vc2, 0)) / R)
+        self._kappa = CubicSpline(np.log(R), np.sqrt(np.maximum(kappa2, 0)))
+
+    def circular_speed(self, R, component=None):
+        """Midplane circular speed (km/s), sqrt(R dPhi/dR); for a component whose
+        contribution R dPhi/dR is negative the sign is kept: sign(v^2) sqrt(|v^2|)."""
+        R = np.asarray(R, float)
+        v2 = -R * self.forces(R, np.zeros_like(R), component)[0]
+        return np.sign(v2) * np.sqrt(np.abs(v2))
+
+    def omega(self, R):
+        """Angular frequency Omega = v_c/R (km/s/kpc)."""
+        return self._omega(np.log(np.asarray(R, float)))
+
+    def kappa(self, R):
+        """Epicycle frequency, kappa^2 = R dOmega^2/dR + 4 Omega^2 (km/s/kpc)
+        (Binney & Tremaine 2008, eq. 3.80)."""
+        return self._kappa(np.log(np.asarray(R, float)))
+
+
+def _sum(tables):
+    total = None
+    for t in tables.values():
+        total = t if total is None else total + t
+    return total

@@ -1,0 +1,182 @@
+"""Internal unit system and the conversion of user unit strings at the edge.
+
+Internal units: length kpc, velocity km/s, mass Msun. Then G is about
+4.300917e-6 kpc (km/s)^2 / Msun and the time unit kpc/(km/s) is about 0.9778 Gyr.
+Everything past the model-file layer works with plain floats in these units.
+"""
+
+import math
+import numbers
+
+import astropy.constants as const
+import astropy.units as u
+
+from icgen.errors import ModelError, did_you_mean
+
+__all__ = [
+    "G",
+    "TIME_UNIT_GYR",
+    "INTERNAL_UNITS",
+    "COSMOLOGIES",
+    "parse_quantity",
+    "critical_density",
+    "unit_scale",
+]
+
+#: Gravitational constant in kpc (km/s)^2 / Msun (CODATA value through astropy.constants).
+G = float(const.G.to_value(u.kpc * (u.km / u.s) ** 2 / u.Msun))
+
+#: The internal time unit kpc/(km/s), in Gyr.
+TIME_UNIT_GYR = float((u.kpc / (u.km / u.s)).to(u.Gyr))
+
+#: Internal unit of each physical type an output unit may be asked for.
+INTERNAL_UNITS = {
+    "length": u.kpc,
+    "velocity": u.km / u.s,
+    "mass": u.Msun,
+    "time": u.kpc / (u.km / u.s),
+    "density": u.Msun / u.kpc**3,
+}
+
+#: Cosmology realizations of astropy.cosmology that a model file may name.
+COSMOLOGIES = ("Planck18", "Planck15", "Planck13", "WMAP9", "WMAP7", "WMAP5", "WMAP3", "WMAP1")
+
+# Example text for error messages, per internal unit (astropy spells Msun 'solMass').
+_EXAMPLES = {
+    u.kpc: ("a length", "'3 kpc'"),
+    u.km / u.s: ("a velocity", "'200 km/s'"),
+    u.Msun: ("a mass", "'5e10 Msun'"),
+    u.Msun / u.kpc**3: ("a mass density", "'1e7 Msun/kpc3'"),
+    u.K: ("a temperature", "'1e4 K'"),
+    u.deg: ("an angle", "'30 deg'"),
+}
+
+_UNIT_EXAMPLES = {"length": "kpc", "velocity": "km/s", "mass": "1e10 Msun", "time": "Gyr"}
+
+# What astropy's parser raises for bad text: ValueError and TypeError in practice (seen
+# by fuzzing astropy 8); UnitsError and ArithmeticError for safety.
+_PARSE_ERRORS = (ValueError, TypeError, ArithmeticError, u.UnitsError)
+
+
+def _describe(unit):
+    """Return (physical type phrase, example string) for an internal unit."""
+    for known, text in _EXAMPLES.items():
+        if unit == known:
+            return text
+    return f"a {unit.physical_type}", f"'1 {unit.to_string()}'"
+
+
+def _first_sentence_of(exc):
+    """Astropy's parse message, cut before its advice on defining custom units."""
+    text = " ".join(str(exc).split())
+    return text.split(" If this is meant to be a custom unit")[0]
+
+
+def parse_quantity(value, key, unit):
+    """Convert a model-file string such as ``"3.2 kpc"`` to a float in ``unit``.
+
+    Parameters
+    ----------
+    value : str
+        A number followed by a unit astropy can parse, e.g. ``"5e10 Msun"``.
+    key : str
+        Model-file key, named in any error.
+    unit : astropy.units.UnitBase
+        Internal unit to convert to (u.kpc, u.km/u.s, u.Msun, u.Msun/u.kpc**3, u.K, u.deg).
+
+    Returns
+    -------
+    float
+        The value in ``unit``; finite.
+
+    Raises
+    ------
+    ModelError
+        For a bare number, a bool, a non-string, text astropy cannot parse, a unit of the
+        wrong physical type, or a non-finite value.
+    """
+    kind, example = _describe(unit)
+    hint = f"give a string with a unit, e.g. {example}"
+    if not isinstance(value, str):
+        raise ModelError(key, value, f"must be {kind}; {hint}")
+    try:
+        quantity = u.Quantity(value)
+    except _PARSE_ERRORS as exc:
+        raise ModelError(key, value, f"not a number with a unit ({_first_sentence_of(exc)}); {hint}")
+    # Function units (dex, mag) convert non-linearly: not what a model file means.
+    if not isinstance(quantity.unit, u.UnitBase) or not quantity.unit.is_equivalent(unit):
+        raise ModelError(key, value, f"must be {kind}, not {quantity.unit.physical_type}; {hint}")
+    number = float(quantity.to_value(unit))
+    if not math.isfinite(number):
+        raise ModelError(key, value, f"must be finite; {hint}")
+    return number
+
+
+def check_cosmology(name, key="model.cosmology"):
+    """Raise ModelError unless ``name`` is one of :data:`COSMOLOGIES`."""
+    if isinstance(name, str) and name in COSMOLOGIES:
+        return
+    hint = did_you_mean(name, COSMOLOGIES)
+    raise ModelError(key, name, f"must be one of {', '.join(COSMOLOGIES)}" + (f"; {hint}" if hint else ""))
+
+
+def critical_density(cosmology_name="Planck18", redshift=0.0):
+    """Critical density of the universe, 3 H(z)^2 / (8 pi G), in Msun/kpc^3.
+
+    Parameters
+    ----------
+    cosmology_name : str
+        Name of an astropy.cosmology realization, one of :data:`COSMOLOGIES`.
+    redshift : float
+        Redshift z >= 0.
+
+    Returns
+    -------
+    float
+        rho_crit(z) in Msun/kpc^3 (about 127.05 for Planck18 at z = 0).
+    """
+    check_cosmology(cosmology_name)
+    if isinstance(redshift, bool) or not isinstance(redshift, numbers.Real):
+        raise ModelError("model.redshift", redshift, "must be a number >= 0")
+    if not (math.isfinite(redshift) and redshift >= 0):
+        raise ModelError("model.redshift", redshift, "must be a finite number >= 0")
+    from astropy import cosmology
+
+    cosmo = getattr(cosmology, cosmology_name)
+    return float(cosmo.critical_density(redshift).to_value(u.Msun / u.kpc**3))
+
+
+def unit_scale(unit_string, physical_type, key):
+    """Factor that converts an internal value to the output unit ``unit_string``.
+
+    Parameters
+    ----------
+    unit_string : str
+        A unit astropy can parse, possibly scaled, e.g. ``"1e10 Msun"``.
+    physical_type : str
+        One of the keys of :data:`INTERNAL_UNITS` ("length", "velocity", "mass", ...).
+    key : str
+        Model-file key, named in any error.
+
+    Returns
+    -------
+    float
+        ``x_out = x_internal * factor``; e.g. 1e-10 for ``"1e10 Msun"``.
+    """
+    if physical_type not in INTERNAL_UNITS:
+        raise ValueError(f"physical_type must be one of {', '.join(INTERNAL_UNITS)}, got {physical_type!r}")
+    internal = INTERNAL_UNITS[physical_type]
+    example = _UNIT_EXAMPLES.get(physical_type, internal.to_string())
+    rule = f"must be a {physical_type} unit astropy can parse, e.g. '{example}'"
+    if not isinstance(unit_string, str) or not unit_string.isprintable():
+        raise ModelError(key, unit_string, rule)
+    try:
+        unit = u.Unit(unit_string)
+    except _PARSE_ERRORS as exc:
+        raise ModelError(key, unit_string, f"{rule} ({_first_sentence_of(exc)})")
+    if not isinstance(unit, u.UnitBase) or not unit.is_equivalent(internal):
+        raise ModelError(key, unit_string, rule)
+    factor = float(internal.to(unit))
+    if not (math.isfinite(factor) and factor > 0):
+        raise ModelError(key, unit_string, f"{rule}, with a positive finite scale")
+    return factor
