@@ -89,7 +89,7 @@ def cmd_curve(args):
         shown = curve.rotation_curve(model, np.linspace(r_out / args.points, r_out, args.points))
         print(_curve_report(model, shown, summary))
     if args.table or args.plot:
-        full = curve.rotation_curve(model, np.linspace(r_out / 300, r_out, 300))
+        full = curve.rotation_curve(model, np.linspace(0.0, r_out, 301))
         if args.table:
             full.write(args.table, format="ascii.ecsv", overwrite=True)
         if args.plot:

@@ -63,30 +63,14 @@ class GalaxyModel:
         return self.potential.circular_speed(R, component)
 
     def enclosed_mass(self, r, component=None):
-        """Mass (Msun) inside spheres of radius r (kpc): exact for spheroids, by
-        quadrature of Sigma(R) zeta(z) over the sphere for disks."""
+        """Mass (Msun) inside spheres of radius r (kpc), total or one component."""
         r = np.atleast_1d(np.asarray(r, float))
         names = list(self.components) if component is None else [component]
-        return sum(_enclosed(self.components[n], r) for n in names)
+        return sum(self.components[n].enclosed_mass(r) for n in names)
 
     def __repr__(self):
         parts = ", ".join(f"{n}:{c.kind}" for n, c in self.components.items())
         return f"GalaxyModel({self.name!r}; {parts})"
-
-
-def _enclosed(comp, r):
-    if comp.kind != "disk":
-        return comp.enclosed_mass(r)
-    # sphere of radius r: 2 int_0^1 dmu int_0^r 2 pi s^2 rho ds, Gauss-Legendre in both
-    x, w = np.polynomial.legendre.leggauss(96)
-    out = np.empty_like(r)
-    for i, ri in enumerate(r):
-        s = 0.5 * ri * (x + 1)
-        mu = 0.5 * (x + 1)
-        S, M = np.meshgrid(s, mu, indexing="ij")
-        rho = comp.density(S * np.sqrt(1 - M * M), S * M)
-        out[i] = 2 * 2 * np.pi * np.einsum("i,j,ij->", 0.5 * ri * w * s**2, 0.5 * w, rho)
-    return out
 
 
 def load_model(source=None, **overrides):

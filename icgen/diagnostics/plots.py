@@ -26,7 +26,7 @@ def plot_rotation_curve(table, kinds, path, summary=None, title=None):
         n = seen.setdefault(kind, 0)
         seen[kind] += 1
         ax.plot(R, table[f"v_circ_{name}"].value, color=color, ls=ls, lw=1.8,
-                alpha=1.0 - 0.25 * n, label=f"{name} ({kind})")
+                alpha=1.0 - 0.25 * n, label=name if name == kind else f"{name} ({kind})")
     ax.plot(R, table["v_circ_total"].value, color="k", lw=2.6, label="total")
     if summary is not None and summary.scale_length:
         r22 = 2.2 * summary.scale_length

@@ -11,7 +11,7 @@ from numba import njit, prange
 POINT_MASS, HERNQUIST, PLUMMER = 0, 1, 2
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def add_spherical(R, z, code, gm, a, phi, f_r, f_z):
     """Closed-form spheres: point mass (-GM/r), Hernquist 1990 eq. 5 (-GM/(r+a)),
     Plummer 1911 (-GM/sqrt(r^2+a^2)); radial force -dPhi/dr projected on (R, z)."""
@@ -33,7 +33,7 @@ def add_spherical(R, z, code, gm, a, phi, f_r, f_z):
             f_z[i] -= d * z[i] / r
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _sigma_shape(r, r_d, r_t, w_t):
     """exp(-r/R_d) T(r) and its derivative, T = erfc((r-R_t)/w)/2 (R_t < 0: no taper)."""
     e = math.exp(-r / r_d)
@@ -45,7 +45,7 @@ def _sigma_shape(r, r_d, r_t, w_t):
     return e * t, -e / r_d * t + e * t1
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _vertical_h(z, z_d, code):
     """H and H' of Dehnen & Binney (1998): sech^2 (code 0) or exponential (code 1)."""
     a = abs(z) / z_d
@@ -55,7 +55,7 @@ def _vertical_h(z, z_d, code):
     return 0.5 * z_d * (e - 1 + a), 0.5 * math.copysign(1.0, z) * (1 - e)
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def add_thin_layer(R, z, four_pi_g_sigma0, r_d, r_t, w_t, z_d, code, phi, f_r, f_z):
     """Phi_1 = 4 pi G Sigma(r) H(z), r = sqrt(R^2+z^2) (Dehnen & Binney 1998, eq. 19)."""
     for i in prange(R.shape[0]):
@@ -68,7 +68,7 @@ def add_thin_layer(R, z, four_pi_g_sigma0, r_d, r_t, w_t, z_d, code, phi, f_r, f
             f_z[i] -= four_pi_g_sigma0 * (s1 * z[i] / r * h + s * h1)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _radial(r, k, j, b0, b1, b2, b3, h, rnodes, phi_t, dphi_t, d2phi_t):
     """Phi_l(r) and dPhi_l/dr for harmonic index k (l = 2k). Inside the grid: cubic
     Hermite in ln r with basis weights b0..b3 (shared by all l); j = -1 inside the first
@@ -80,8 +80,8 @@ def _radial(r, k, j, b0, b1, b2, b3, h, rnodes, phi_t, dphi_t, d2phi_t):
         if l == 0:
             c = dphi_t[0, 0] / r0
             return phi_t[0, 0] + 0.5 * c * (r * r - r0 * r0), c * r
-        p = phi_t[0, k] * (r / r0) ** l
-        return p, l * p / r
+        p = phi_t[0, k] * (r / r0) ** (l - 1)
+        return p * r / r0, l * p / r0
     if j >= n - 1:
         p = phi_t[n - 1, k] * (rnodes[n - 1] / r) ** (l + 1)
         return p, -(l + 1) * p / r
@@ -93,7 +93,7 @@ def _radial(r, k, j, b0, b1, b2, b3, h, rnodes, phi_t, dphi_t, d2phi_t):
     return p, d
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _locate(r, lnr0, h, n):
     """Interval index j and fraction t of r on the ln r grid (-1 / n-1 outside)."""
     if r <= math.exp(lnr0):
@@ -105,7 +105,7 @@ def _locate(r, lnr0, h, n):
     return j, u - j
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def add_multipole(R, z, lnr0, h, rnodes, phi_t, dphi_t, d2phi_t, phi, f_r, f_z):
     """Sum_l Phi_l(r) P_l(mu) over even l, mu = z/r, and its gradient. Tables are
     (n_radii, n_harmonics), so all harmonics of one radius are adjacent in memory.

@@ -24,6 +24,12 @@ def vertical_profile(z, z_d, code):
     return 0.5 / z_d * np.exp(-a)
 
 
+def vertical_mass_fraction(z, z_d, code):
+    """Fraction of the column within |z'| < z: tanh(z/z_d) (sech^2) or 1 - exp(-z/z_d)."""
+    a = np.abs(z) / z_d
+    return np.tanh(a) if code == SECH2 else -np.expm1(-a)
+
+
 def vertical_h(z, z_d, code):
     """(H, H') with H'' = zeta, H(0) = H'(0) = 0 (Dehnen & Binney 1998, eq. 20 and 21)."""
     a = np.abs(z) / z_d
@@ -97,6 +103,19 @@ class ExponentialDisk:
         with np.errstate(divide="ignore", invalid="ignore"):
             res = (s_R - s) * zeta - h * (s2 + 2 * s1 / r) - 2 * s1 * h1 * z / r
         return np.where(r > 0, res, 0.0)
+
+    def enclosed_mass(self, r):
+        """Mass (Msun) inside spheres of radius r (kpc):
+        int_0^r 2 pi R Sigma(R) F(sqrt(r^2 - R^2)) dR, F the vertical mass fraction."""
+        out = []
+        for ri in np.atleast_1d(np.asarray(r, float)):
+            f = lambda R: 2 * np.pi * R * self.surface_density(R) * vertical_mass_fraction(
+                np.sqrt(max(ri * ri - R * R, 0.0)), self.z_d, self.vertical)
+            top = min(ri, self.extent)
+            val, _ = integrate.quad(f, 0, top, points=[min(self.R_d, top)], limit=200,
+                                    epsrel=1e-10)
+            out.append(val)
+        return np.array(out)
 
     def multipole_density(self):
         return self.residual_density
