@@ -12,6 +12,7 @@ from scipy.interpolate import CubicSpline
 from .. import defaults
 from ..units import G
 from . import kernels
+from .grid import PotentialGrid
 from .multipole import radial_grid, solve
 
 
@@ -42,19 +43,54 @@ class GalaxyPotential:
             self.tables[c.name] = solve(dens, self.r_grid, 0 if spherical else lmax,
                                         4 if spherical else defaults.ANGULAR_NODES, G)
         self.total_table = _sum(self.tables)
+        self._table_cache = {}
+        # Closed-form spheres (and point masses, singular at r = 0) are always evaluated
+        # exactly; the grid holds disks and numerically tabulated spheroids.
+        self._analytic = [c.name for c in components if c.analytic_terms()]
+        self._gridded_names = [n for n in self.components if n not in self._analytic]
+        vertical = [c.z_d for c in components if c.kind == "disk"]
+        self.grid = None
+        if self._gridded_names:
+            g_scales = [self.components[n].scale for n in self._gridded_names]
+            s = min(vertical) if vertical else 0.1 * min(g_scales)
+            g_ext = max(self.components[n].extent for n in self._gridded_names)
+            self.grid = PotentialGrid(lambda R, z: self._exact(R, z, self._gridded_names),
+                                      s, g_ext)
         self._build_midplane()
 
     # -- evaluation -------------------------------------------------------------------
-    def evaluate(self, R, z, component=None):
+    def evaluate(self, R, z, component=None, exact=False):
         """(Phi, F_R, F_z) at points (R, z) in kpc; units (km/s)^2 and (km/s)^2/kpc.
 
-        ``component`` limits the sum to one named component (None: all)."""
-        R = np.ascontiguousarray(np.broadcast_arrays(np.asarray(R, float), np.asarray(z, float))[0])
+        ``component`` limits the sum to one named component (None: all; the exact sum is
+        always used for one component). The total uses the interpolation grid unless
+        ``exact`` is True (relative difference ~1e-5, see potential/grid.py)."""
+        R, z = np.broadcast_arrays(np.asarray(R, float), np.asarray(z, float))
         shape = R.shape
-        Rf = R.ravel()
-        zf = np.ascontiguousarray(np.broadcast_to(np.asarray(z, float), shape)).ravel()
+        Rf, zf = np.ascontiguousarray(R).ravel(), np.ascontiguousarray(z).ravel()
+        if component is not None:
+            out = self._exact(Rf, zf, [component])
+        elif exact or self.grid is None:
+            out = self._exact(Rf, zf, list(self.components))
+        else:
+            out = self._gridded(Rf, zf)
+        return tuple(a.reshape(shape) for a in out)
+
+    def _gridded(self, Rf, zf):
+        phi, f_r, f_z, outside = self.grid.evaluate(Rf, zf)
+        if outside.any():
+            far = self._exact(Rf[outside], zf[outside], self._gridded_names)
+            for arr, val in zip((phi, f_r, f_z), far):
+                arr[outside] = val
+        for name in self._analytic:
+            for code, mass, a in self.components[name].analytic_terms():
+                kernels.add_spherical(Rf, zf, code, G * mass, a, phi, f_r, f_z)
+        return phi, f_r, f_z
+
+    def _exact(self, Rf, zf, names):
+        """Sum of the named components' exact pieces at flat arrays."""
+        Rf, zf = np.ascontiguousarray(Rf, dtype=float), np.ascontiguousarray(zf, dtype=float)
         phi, f_r, f_z = np.zeros_like(Rf), np.zeros_like(Rf), np.zeros_like(Rf)
-        names = list(self.components) if component is None else [component]
         for name in names:
             c = self.components[name]
             for code, mass, a in c.analytic_terms():
@@ -63,11 +99,14 @@ class GalaxyPotential:
                 s0, r_d, r_t, w_t, z_d, code = c.thin_layer_params()
                 kernels.add_thin_layer(Rf, zf, 4 * np.pi * G * s0, r_d, r_t, w_t, z_d,
                                        int(code), phi, f_r, f_z)
-        table = self.total_table if component is None else self.tables.get(component)
+        key = tuple(sorted(n for n in names if n in self.tables))
+        if key not in self._table_cache:
+            self._table_cache[key] = _sum({n: self.tables[n] for n in key})
+        table = self._table_cache[key]
         if table is not None:
             kernels.add_multipole(Rf, zf, table.lnr0, table.h, table.r, *table.kernel_arrays(),
                                   phi, f_r, f_z)
-        return phi.reshape(shape), f_r.reshape(shape), f_z.reshape(shape)
+        return phi, f_r, f_z
 
     def potential(self, R, z, component=None):
         """Phi (km/s)^2 at (R, z) kpc."""
@@ -88,7 +127,7 @@ class GalaxyPotential:
         R = np.geomspace(1e-3, r_max, defaults.MIDPLANE_POINTS)
         self._mid_R = R
         self._vc2 = {n: -R * self.forces(R, 0.0, n)[0] for n in self.components}
-        vc2 = -R * self.forces(R, 0.0)[0]
+        vc2 = -R * self.evaluate(R, 0 * R, exact=True)[1]
         self._vc2_total = vc2
         spline = CubicSpline(np.log(R), vc2)
         kappa2 = spline(np.log(R), 1) / R**2 + 2 * vc2 / R**2
@@ -99,7 +138,7 @@ class GalaxyPotential:
         """Midplane circular speed (km/s), sqrt(R dPhi/dR); for a component whose
         contribution R dPhi/dR is negative the sign is kept: sign(v^2) sqrt(|v^2|)."""
         R = np.asarray(R, float)
-        v2 = -R * self.forces(R, np.zeros_like(R), component)[0]
+        v2 = -R * self.evaluate(R, np.zeros_like(R), component, exact=True)[1]
         return np.sign(v2) * np.sqrt(np.abs(v2))
 
     def omega(self, R):
