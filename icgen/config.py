@@ -42,7 +42,7 @@ _BARE_KEY = re.compile(r"[A-Za-z0-9_-]+\Z")
 SPHEROID_PROFILES = ("nfw", "hernquist", "plummer", "pseudo_isothermal", "burkert")
 VERTICAL_PROFILES = ("sech2", "exponential")
 VELOCITY_METHODS = ("eddington", "jeans")
-KINDS = ("halo", "bulge", "disk", "point_mass")
+KINDS = ("halo", "bulge", "disk", "gas_disk", "point_mass")
 
 # How each key is read and written: (label, astropy unit) for dimensional keys,
 # "number" for dimensionless floats, "count" for integers, "text" for strings.
@@ -54,7 +54,9 @@ _VALUE_KINDS = {
     "scale_length": _LENGTH, "scale_height": _LENGTH, "taper_radius": _LENGTH,
     "taper_width": _LENGTH, "toomre_q_radius": _LENGTH, "scale_radius": _LENGTH,
     "core_radius": _LENGTH, "outer_radius": _LENGTH, "truncation_width": _LENGTH,
-    "anisotropy_radius": _LENGTH,
+    "anisotropy_radius": _LENGTH, "temperature": ("K", u.K),
+    "sound_speed": ("km/s", u.km / u.s), "mean_molecular_weight": "number",
+    "adiabatic_index": "number",
     "toomre_q": "number", "toomre_q_min": "number", "sigma_ratio": "number",
     "concentration": "number", "spin": "number", "redshift": "number",
     "particles": "count", "seed": "count",
@@ -352,7 +354,9 @@ class PointMassSpec:
         _set(self, "particles", 1)
 
 
-_SPEC_TYPES = (DiskSpec, SpheroidSpec, PointMassSpec)
+def _spec_types():
+    from icgen.gas_spec import GasDiskSpec
+    return (DiskSpec, SpheroidSpec, PointMassSpec, GasDiskSpec)
 
 
 @dataclass(frozen=True)
@@ -393,7 +397,7 @@ class ModelSpec:
         _set(self, "components", tuple(self.components))
         names = set()
         for spec in self.components:
-            if not isinstance(spec, _SPEC_TYPES):
+            if not isinstance(spec, _spec_types()):
                 raise ModelError("components", spec, "each must be a DiskSpec, SpheroidSpec or PointMassSpec")
             if spec.name in names:
                 raise ModelError("components", spec.name, "component names must be unique")
@@ -502,11 +506,11 @@ def _component_from_table(name, table):
     kind = table.get("kind", MISSING)
     if kind is MISSING:
         raise ModelError(_key("components", name, "kind"), MISSING, f"missing; one of {', '.join(KINDS)}")
-    if kind == "gas_disk":
-        rule = f"gas disks are not supported yet; use one of {', '.join(KINDS)}"
-        raise ModelError(_key("components", name, "kind"), kind, rule)
     _choice(_key("components", name, "kind"), kind, KINDS)
-    if kind == "disk":
+    if kind == "gas_disk":
+        from icgen.gas_spec import GAS_KEYS, GasDiskSpec
+        cls, allowed, required = GasDiskSpec, GAS_KEYS, ("mass", "scale_length")
+    elif kind == "disk":
         cls, allowed, required = DiskSpec, _DISK_KEYS, ("mass", "scale_length", "scale_height")
     elif kind == "point_mass":
         cls, allowed, required = PointMassSpec, _POINT_MASS_KEYS, ("mass",)

@@ -30,3 +30,12 @@ TRUNCATION_DECAY_FRACTION = 0.1
 # of asinh(R/s), s = smallest vertical scale. 40 per unit (h = 0.025) keeps the cubic
 # B-spline error of Phi and forces below ~1e-5 relative (tests/test_potential_grid.py).
 GRID_NODES_PER_ASINH_UNIT = 40
+
+# Gas disk (profiles/gas.py, potential/gas_solver.py): vertical-structure grid uniform in
+# asinh(R / 0.05 R_d) and asinh(z / 0.05 z_ref); iteration stops when the midplane density
+# changes by less than GAS_TOLERANCE (relative, where Sigma_g > 1e-6 of its centre value).
+GAS_GRID_R = 160
+GAS_GRID_Z = 160
+GAS_LMAX = 96
+GAS_TOLERANCE = 1e-4
+GAS_MAX_ITERATIONS = 60

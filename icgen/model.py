@@ -11,6 +11,7 @@ import numpy as np
 
 from . import config
 from .potential import GalaxyPotential
+from .potential.gas_solver import solve_gas
 from .profiles import ExponentialDisk, PointMass, make_spheroid
 
 
@@ -35,7 +36,14 @@ class GalaxyModel:
 
     def __init__(self, spec):
         self.spec = spec
-        self.components = {s.name: build_component(s, spec) for s in spec.components}
+        built = {s.name: build_component(s, spec) for s in spec.components
+                 if s.kind != "gas_disk"}
+        self.gas_solution = None
+        gas_specs = [s for s in spec.components if s.kind == "gas_disk"]
+        if gas_specs:
+            gases, self.gas_solution = solve_gas(gas_specs, list(built.values()))
+            built.update({g.name: g for g in gases})
+        self.components = {s.name: built[s.name] for s in spec.components}
         self.potential = GalaxyPotential(list(self.components.values()))
 
     @property
@@ -45,6 +53,10 @@ class GalaxyModel:
     @property
     def disks(self):
         return [c for c in self.components.values() if c.kind == "disk"]
+
+    @property
+    def gas_disks(self):
+        return [c for c in self.components.values() if c.kind == "gas_disk"]
 
     def density(self, R, z, component=None):
         """rho (Msun/kpc^3) at cylindrical (R, z) in kpc."""

@@ -1,10 +1,9 @@
 """Total potential of a galaxy model: closed-form spheres, Dehnen & Binney (1998) thin
 layers of the disks, and one multipole expansion of everything else.
 
-Instead of interpolating Phi on an (R, z) grid, the expansion is kept as radial tables of
-Phi_l(r) (cubic Hermite in ln r) and summed over P_l(mu) at each point: it is smooth to
-all orders in angle, exact in the analytic parts, and as fast to evaluate (see
-DEVELOPERS.md). Midplane v_c, Omega and kappa are tabulated once and splined.
+Exact evaluation keeps the expansion as radial tables of Phi_l(r) (cubic Hermite in ln r)
+summed over P_l(mu) at each point; the fast path interpolates that sum on an (R, z) B-spline
+grid (potential/grid.py). Midplane v_c, Omega and kappa are tabulated once and splined.
 """
 import numpy as np
 from scipy.interpolate import CubicSpline
@@ -14,6 +13,8 @@ from ..units import G
 from . import kernels
 from .grid import PotentialGrid
 from .multipole import radial_grid, solve
+
+DISK_KINDS = ("disk", "gas_disk")
 
 
 class GalaxyPotential:
@@ -27,7 +28,7 @@ class GalaxyPotential:
         Highest even harmonic for non-spherical densities.
     """
 
-    def __init__(self, components, lmax=defaults.DISK_LMAX):
+    def __init__(self, components, lmax=defaults.DISK_LMAX, grid=True):
         self.components = {c.name: c for c in components}
         scales = [c.scale for c in components if c.scale > 0] or [1.0]
         extents = [c.extent for c in components if c.extent > 0] or [1.0]
@@ -39,8 +40,9 @@ class GalaxyPotential:
             dens = c.multipole_density()
             if dens is None:
                 continue
-            spherical = c.kind != "disk"
-            self.tables[c.name] = solve(dens, self.r_grid, 0 if spherical else lmax,
+            spherical = c.kind not in DISK_KINDS
+            l_c = 0 if spherical else getattr(c, "lmax", lmax)
+            self.tables[c.name] = solve(dens, self.r_grid, l_c,
                                         4 if spherical else defaults.ANGULAR_NODES, G)
         self.total_table = _sum(self.tables)
         self._table_cache = {}
@@ -48,15 +50,16 @@ class GalaxyPotential:
         # exactly; the grid holds disks and numerically tabulated spheroids.
         self._analytic = [c.name for c in components if c.analytic_terms()]
         self._gridded_names = [n for n in self.components if n not in self._analytic]
-        vertical = [c.z_d for c in components if c.kind == "disk"]
+        vertical = [c.z_d for c in components if c.kind in DISK_KINDS]
         self.grid = None
-        if self._gridded_names:
+        if self._gridded_names and grid:
             g_scales = [self.components[n].scale for n in self._gridded_names]
             s = min(vertical) if vertical else 0.1 * min(g_scales)
             g_ext = max(self.components[n].extent for n in self._gridded_names)
             self.grid = PotentialGrid(lambda R, z: self._exact(R, z, self._gridded_names),
                                       s, g_ext)
-        self._build_midplane()
+        if grid:
+            self._build_midplane()
 
     # -- evaluation -------------------------------------------------------------------
     def evaluate(self, R, z, component=None, exact=False):
@@ -95,7 +98,9 @@ class GalaxyPotential:
             c = self.components[name]
             for code, mass, a in c.analytic_terms():
                 kernels.add_spherical(Rf, zf, code, G * mass, a, phi, f_r, f_z)
-            if c.kind == "disk":
+            if c.kind == "gas_disk":
+                c.add_layer(Rf, zf, G, phi, f_r, f_z)
+            elif c.kind == "disk":
                 s0, r_d, r_t, w_t, z_d, code = c.thin_layer_params()
                 kernels.add_thin_layer(Rf, zf, 4 * np.pi * G * s0, r_d, r_t, w_t, z_d,
                                        int(code), phi, f_r, f_z)
