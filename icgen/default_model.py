@@ -22,7 +22,9 @@ kind = "halo"
 profile = "nfw"
 mass = "1.0e12 Msun"
 concentration = 10
-particles = 600_000
+# 1.2e6 particles of 1.0e6 Msun (the halo holds 1.21e12 Msun with its outer cut): at most 5x
+# the disk particle mass, against numerical disk heating (Ludlow et al. 2019)
+particles = 1_200_000
 
 [components.disk]
 kind = "disk"
@@ -32,14 +34,14 @@ scale_length = "3.0 kpc"
 scale_height = "0.3 kpc"
 vertical = "sech2"
 toomre_q = 1.5
-particles = 300_000
+particles = 200_000
 
 [components.bulge]
 kind = "bulge"
 profile = "hernquist"
 mass = "1.0e10 Msun"
 scale_radius = "0.6 kpc"
-particles = 100_000
+particles = 50_000
 """
 
 STARTER_TOML = """\

@@ -20,7 +20,7 @@ DISK_LMAX = 64
 ANGULAR_NODES = 128
 
 # Midplane table for v_c, Omega, kappa: log-spaced radii.
-MIDPLANE_POINTS = 600
+MIDPLANE_POINTS = 800
 
 # Outer exponential cut of infinite-mass spheroids (Kazantzidis, Magorrian & Moore 2004):
 # default decay length as a fraction of the truncation radius (common practice: 0.1).

@@ -153,11 +153,11 @@ def test_default_model_loads_with_the_documented_values():
     assert spec.name == "icgen default spiral" and spec.seed == 20261201
     assert [c.name for c in spec.components] == ["halo", "disk", "bulge"]
     halo, disk, bulge = spec.components
-    assert (halo.profile, halo.mass, halo.concentration, halo.particles) == ("nfw", 1e12, 10.0, 600_000)
+    assert (halo.profile, halo.mass, halo.concentration, halo.particles) == ("nfw", 1e12, 10.0, 1_200_000)
     assert (disk.mass, disk.scale_length, disk.scale_height) == (4.5e10, 3.0, 0.3)
-    assert (disk.vertical, disk.toomre_q, disk.particles) == ("sech2", 1.5, 300_000)
+    assert (disk.vertical, disk.toomre_q, disk.particles) == ("sech2", 1.5, 200_000)
     assert disk.toomre_q_radius == pytest.approx(7.5)  # default 2.5 scale lengths
-    assert (bulge.profile, bulge.mass, bulge.scale_radius, bulge.particles) == ("hernquist", 1e10, 0.6, 100_000)
+    assert (bulge.profile, bulge.mass, bulge.scale_radius, bulge.particles) == ("hernquist", 1e10, 0.6, 50_000)
     assert spec.output == OutputSpec(mass_unit="1e10 Msun")
     assert spec.component("disk") is disk
 

@@ -129,7 +129,9 @@ class GalaxyPotential:
     # -- midplane ---------------------------------------------------------------------
     def _build_midplane(self):
         r_max = max(c.extent for c in self.components.values()) or 100.0
-        R = np.geomspace(1e-3, r_max, defaults.MIDPLANE_POINTS)
+        # from 10x the innermost multipole node, so the splines never extrapolate inwards
+        # of the scales the model resolves (omega/kappa clamp R to this range)
+        R = np.geomspace(10 * self.r_grid[0], r_max, defaults.MIDPLANE_POINTS)
         self._mid_R = R
         self._vc2 = {n: -R * self.forces(R, 0.0, n)[0] for n in self.components}
         vc2 = -R * self.evaluate(R, 0 * R, exact=True)[1]
@@ -147,13 +149,13 @@ class GalaxyPotential:
         return np.sign(v2) * np.sqrt(np.abs(v2))
 
     def omega(self, R):
-        """Angular frequency Omega = v_c/R (km/s/kpc)."""
-        return self._omega(np.log(np.asarray(R, float)))
+        """Angular frequency Omega = v_c/R (km/s/kpc); R clamped to the table range."""
+        return self._omega(np.log(np.clip(np.asarray(R, float), self._mid_R[0], self._mid_R[-1])))
 
     def kappa(self, R):
         """Epicycle frequency, kappa^2 = R dOmega^2/dR + 4 Omega^2 (km/s/kpc)
         (Binney & Tremaine 2008, eq. 3.80)."""
-        return self._kappa(np.log(np.asarray(R, float)))
+        return self._kappa(np.log(np.clip(np.asarray(R, float), self._mid_R[0], self._mid_R[-1])))
 
 
 def _sum(tables):
