@@ -280,7 +280,7 @@ BAD_INPUTS = [
     (_set("components.halo.spin", 1.5), "components.halo.spin", "between 0 and 1"),
     (_set("components.halo.velocities", "jean"), "components.halo.velocities", "did you mean 'jeans'?"),
     (_set("components.halo.anisotropy_radius", "-1 kpc"), "components.halo.anisotropy_radius", "> 0"),
-    (_set("components.halo.kind", "gas_disk"), "components.halo.kind", "not supported yet"),
+    (_set("components.halo.kind", "gas_disk"), "components.halo.concentration", "unknown key for a gas_disk"),
     (_set("components.halo.kind", DELETE), "components.halo.kind", "missing"),
     (_set("components.halo.profile", "NFW"), "components.halo.profile", "did you mean 'nfw'?"),
     (_set("components.halo.particles", DELETE), "components.halo.particles", "particle_mass"),
