@@ -10,7 +10,10 @@ def __getattr__(name):
     if name in ("load_model", "GalaxyModel"):
         from . import model
         return getattr(model, name)
+    if name == "read_snapshot":
+        from . import snapshot
+        return snapshot.read_snapshot
     raise AttributeError(f"module 'icgen' has no attribute {name!r}")
 
 
-__all__ = ["load_model", "GalaxyModel", "__version__"]
+__all__ = ["load_model", "GalaxyModel", "read_snapshot", "__version__"]

@@ -1,0 +1,326 @@
+"""Build a snapshot file: model -> potential -> sampled chunks -> streamed HDF5 writer.
+
+``build_snapshot`` is what ``icgen build`` runs. Memory stays bounded whatever the
+particle count: one chunk of particles (``chunk_size``) is held at a time, and the
+centre-of-mass offset, known only once every particle is made, is removed by a second
+in-place pass over the written datasets, again chunk by chunk.
+
+Every input is checked before any work starts (ModelError, nothing written). SIGINT and
+SIGTERM become :class:`BuildInterrupted`; like any error they remove the temporary file.
+"""
+import dataclasses
+import os
+import signal
+import threading
+import time
+import warnings
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+
+import astropy.units as u
+import numpy as np
+
+from . import sampling
+from .config import ModelSpec
+from .errors import ModelError
+from .progress import progress_enabled, stage_bar
+from .snapshot import SnapshotWriter, check_format
+
+__all__ = ["DEFAULT_CHUNK_SIZE", "BuildInterrupted", "BuildResult", "ComponentSummary",
+           "build_snapshot", "check_output_path"]
+
+# Particles per chunk: 2**18 particles are ~15 MB of float64 position, velocity and
+# mass, plus the sampler's work arrays (a few times that): a fixed budget well under
+# 1 GB, and large enough that per-chunk overheads (HDF5 calls) stay below 1 %.
+DEFAULT_CHUNK_SIZE = 262144
+
+
+class BuildInterrupted(BaseException):
+    """SIGINT or SIGTERM arrived during a build; the temporary file has been removed.
+
+    A BaseException, like KeyboardInterrupt, so that no ``except Exception`` on the way
+    swallows it. ``exit_status`` is 128 + the signal number (130, 143), as shells report.
+    """
+
+    def __init__(self, signum):
+        self.signum = int(signum)
+        self.exit_status = 128 + self.signum
+        super().__init__(f"interrupted by {signal.Signals(signum).name}")
+
+
+class _SignalGuard:
+    """Records SIGINT/SIGTERM and raises BuildInterrupted, at once and at checkpoints.
+
+    The handler raises at once, so a long stage stops promptly; but Python drops an
+    exception raised while it runs a weakref callback or a finalizer ("Exception
+    ignored in ..."), which happened in testing. So the signal is also recorded and
+    :meth:`check`, called between chunks and before the final rename, raises again:
+    a signalled build can never reach the rename.
+    """
+
+    def __init__(self):
+        self.received = None
+
+    def handler(self, signum, frame):
+        if self.received is not None:   # already unwinding: let the clean-up finish
+            return
+        self.received = signum
+        raise BuildInterrupted(signum)
+
+    def check(self):
+        if self.received is not None:
+            raise BuildInterrupted(self.received)
+
+
+@contextmanager
+def _signals_raise():
+    """A _SignalGuard handling SIGINT/SIGTERM while the block runs (main thread only;
+    elsewhere signals cannot be caught and the guard never fires)."""
+    guard = _SignalGuard()
+    if threading.current_thread() is not threading.main_thread():
+        yield guard
+        return
+    previous = {s: signal.signal(s, guard.handler) for s in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield guard
+    finally:
+        for s, h in previous.items():
+            signal.signal(s, h)
+
+
+@dataclass
+class ComponentSummary:
+    """One component of a written file, in the file's output units."""
+    name: str
+    kind: str
+    count: int
+    particle_mass: float
+    total_mass: float
+    half_mass_radius: float
+
+
+@dataclass
+class BuildResult:
+    """What ``build_snapshot`` wrote.
+
+    ``centre_offset`` is the (position kpc, velocity km/s) mean that was subtracted;
+    ``timing`` holds seconds per stage; ``warnings`` the sampler's messages.
+    """
+    path: str
+    size_bytes: int
+    seed: int
+    units: object
+    components: list
+    centre_offset: tuple
+    timing: dict = field(default_factory=dict)
+    warnings: list = field(default_factory=list)
+
+    def report(self):
+        """Summary table and the output line, as printed by ``icgen build``."""
+        from .textout import format_table
+
+        L, M = self.units.length, self.units.mass
+        rows = [[c.name, c.kind, f"{c.count:,}", f"{c.particle_mass:.4g}",
+                 f"{c.total_mass:.4g}", f"{c.half_mass_radius:.4g}"] for c in self.components]
+        headers = ["component", "kind", "particles", f"m/particle [{M}]",
+                   f"total mass [{M}]", f"r_half [{L}]"]
+        x0, v0 = self.centre_offset
+        lines = [format_table(headers, rows), "",
+                 "r_half: half-mass radius about the component's own centre of mass, "
+                 "from the written particles",
+                 f"centre of mass moved to the origin: offset {np.linalg.norm(x0):.3g} kpc, "
+                 f"{np.linalg.norm(v0):.3g} km/s",
+                 f"wrote {self.path} ({self.size_bytes / 1e6:.1f} MB, seed {self.seed}) "
+                 f"in {sum(self.timing.values()):.1f} s"]
+        return "\n".join(lines)
+
+
+def check_output_path(path, overwrite=False):
+    """Absolute target path, or ModelError if it cannot be written (nothing is touched)."""
+    if not isinstance(path, (str, os.PathLike)) or not str(path).strip():
+        raise ModelError("--output", path, "must be the path of the .h5 file to write")
+    path = os.path.abspath(os.fspath(path))
+    folder = os.path.dirname(path)
+    if not os.path.isdir(folder):
+        raise ModelError("--output", path, f"folder {folder!r} does not exist")
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise ModelError("--output", path, f"folder {folder!r} is not writable")
+    if os.path.isdir(path):
+        raise ModelError("--output", path, "is a folder; give a file name, e.g. galaxy.h5")
+    if os.path.lexists(path) and not overwrite:
+        raise ModelError("--output", path, "file exists; pass --overwrite to replace it")
+    return path
+
+
+def _check_options(precision, compress, chunk_size):
+    check_format(precision, compress)
+    if isinstance(chunk_size, bool) or not isinstance(chunk_size, (int, np.integer)) \
+            or chunk_size < 1:
+        raise ModelError("--chunk-size", chunk_size, "must be a whole number >= 1, e.g. 262144")
+
+
+def _resolve_spec(model, seed):
+    """(spec, GalaxyModel or None) with the seed override applied."""
+    from .model import GalaxyModel
+
+    if isinstance(model, GalaxyModel):
+        spec, built = model.spec, model
+    elif isinstance(model, ModelSpec):
+        spec, built = model, None
+    else:
+        raise ModelError("model", model, "must be a ModelSpec or a GalaxyModel")
+    if seed is not None and seed != spec.seed:
+        # ModelSpec is frozen; replace() re-runs its validation on the new seed.
+        spec, built = dataclasses.replace(spec, seed=seed), None
+    return spec, built
+
+
+def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double",
+                   compress=None, chunk_size=DEFAULT_CHUNK_SIZE, quiet=True):
+    """Sample ``model`` and write it as an icgen snapshot (HDF5 schema version 1).
+
+    Parameters
+    ----------
+    model : icgen.config.ModelSpec or icgen.model.GalaxyModel
+    path : str or PathLike
+        Target file; its folder must exist.
+    seed : int, optional
+        Replaces the model's seed (stored in the file's ``seed`` and ``config``).
+    overwrite : bool
+        Replace an existing file at ``path``.
+    precision : {"double", "single"}
+        Float type of positions, velocities and masses.
+    compress : {None, "gzip", "lzf"}
+        Chunked datasets with shuffle and this filter; None: contiguous.
+    chunk_size : int
+        Particles held in memory at a time; the file does not depend on it.
+    quiet : bool
+        No progress bars (they are drawn only on a terminal anyway).
+
+    Returns
+    -------
+    BuildResult
+
+    Raises
+    ------
+    ModelError
+        Bad input, found before any work (or a target that appeared meanwhile).
+    NonFiniteError
+        The sampler produced a NaN or infinity (names the component); nothing written.
+    BuildInterrupted
+        SIGINT or SIGTERM; nothing written.
+    """
+    path = check_output_path(path, overwrite)
+    _check_options(precision, compress, chunk_size)
+    spec, built = _resolve_spec(model, seed)
+    bars = progress_enabled(quiet)
+    timing = {}
+    with _signals_raise() as guard:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", sampling.SamplingWarning)
+            model = _stage("potential", bars, timing,
+                           lambda: built if built is not None else _galaxy_model(spec))
+            plans = sampling.plan(model)
+            guard.check()
+            _stage("velocity tables", bars, timing, lambda: sampling.realize.samplers(model))
+            guard.check()
+            with SnapshotWriter(path, spec, plans, precision, compress) as writer:
+                report = sampling.SamplingReport()
+                _stream(model, writer, plans, chunk_size, bars, timing, report, guard)
+                # the sampler sums m x and m v per fixed block: an offset that does not
+                # depend on chunk_size, hence bit-identical files
+                _finish(model, writer, plans, bars, timing, report.center_of_mass(), guard)
+                guard.check()
+                t0 = time.perf_counter()
+                writer.commit(overwrite)
+                timing["commit"] = time.perf_counter() - t0
+    messages = []
+    for w in caught:
+        if issubclass(w.category, sampling.SamplingWarning):
+            messages.append(str(w.message))
+        else:
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    return _result(writer, plans, path, spec, timing, messages)
+
+
+def _galaxy_model(spec):
+    from .model import GalaxyModel
+
+    return GalaxyModel(spec)
+
+
+def _stage(name, bars, timing, fn):
+    """Run a one-step stage under its own bar; record its time."""
+    t0 = time.perf_counter()
+    with stage_bar(name, 1, bars) as bar:
+        out = fn()
+        bar.update(1)
+    timing[name] = time.perf_counter() - t0
+    return out
+
+
+def _stream(model, writer, plans, chunk_size, bars, timing, report, guard):
+    """Sample every component chunk by chunk and append each chunk to the writer."""
+    t_sample = t_write = 0.0
+    bars_left = iter(plans)
+    current, done = None, 0     # the component whose bar is open, particles shown
+    bar = None
+    chunks = sampling.iter_chunks(model, chunk_size=chunk_size, report=report)
+    try:
+        while True:
+            if bar is None or done == current.count:
+                # open the next component's bar before its first chunk is sampled, so
+                # that its clock and rate include the sampling
+                if bar is not None:
+                    bar.close()
+                current, done = next(bars_left, None), 0
+                bar = stage_bar(current.name, current.count, bars, unit=" particles") \
+                    if current is not None else None
+            t0 = time.perf_counter()
+            chunk = next(chunks, None)
+            t1 = time.perf_counter()
+            t_sample += t1 - t0
+            guard.check()
+            if chunk is None:
+                break
+            writer.append(chunk)
+            t_write += time.perf_counter() - t1
+            if bar is not None and current.name == chunk.component:
+                bar.update(len(chunk))
+                done += len(chunk)
+    finally:
+        chunks.close()
+        if bar is not None:
+            bar.close()
+    timing["sampling"] = t_sample
+    timing["writing"] = t_write
+
+
+def _finish(model, writer, plans, bars, timing, offset, guard):
+    """Centre-of-mass pass, analytic rotation curve and attributes."""
+    from .diagnostics import curve
+
+    t0 = time.perf_counter()
+    table = curve.rotation_curve(model, curve.default_radii(model))
+    radius = table["radius"].to_value(u.kpc)
+    speeds = {name: table[f"v_circ_{name}"].to_value(u.km / u.s)
+              for name in ["total"] + [p.name for p in plans]}
+    with stage_bar("centring", sum(p.count for p in plans), bars, unit=" particles") as bar:
+        def progress(n):
+            guard.check()
+            bar.update(n)
+
+        writer.finish(radius, speeds, offset=offset, progress=progress)
+    timing["centring"] = time.perf_counter() - t0
+
+
+def _result(writer, plans, path, spec, timing, messages):
+    radii = writer.half_mass_radii()
+    units = writer.units
+    comps = []
+    for p in plans:
+        total = writer.streams[p.name].total_out
+        comps.append(ComponentSummary(p.name, p.kind, p.count, total / p.count, total,
+                                      radii[p.name]))
+    return BuildResult(path, os.path.getsize(path), spec.seed, units, comps,
+                       writer.centre, timing, messages)

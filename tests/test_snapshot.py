@@ -1,0 +1,305 @@
+"""Snapshot writer and reader alone: round trips, units, guards, schema (DESIGN.md section 6).
+
+The particles here are invented (random numbers from a seeded generator): the writer is
+checked for storing exactly what it is given, independently of the samplers.
+"""
+import math
+import os
+import shutil
+from collections import namedtuple
+
+import astropy.constants as const
+import astropy.units as u
+import h5py
+import numpy as np
+import pytest
+
+from icgen.config import spec_from_dict, spec_from_toml_text
+from icgen.errors import ModelError
+from icgen.sampling import ParticleChunk
+from icgen.snapshot import (NonFiniteError, SnapshotWriter, describe, partial_path,
+                            read_header, read_snapshot)
+
+Plan = namedtuple("Plan", "name kind count")
+
+# IAU 2012 Resolution B2 (au) and the IAU 2015 definition of the parsec; used to convert
+# G without astropy.units.
+AU_M = 149_597_870_700.0
+PC_M = AU_M * 648_000.0 / math.pi
+
+ROOT_KEYS = {"schema", "schema_version", "length_unit", "velocity_unit", "mass_unit", "G",
+             "seed", "config", "created", "icgen_version"}
+
+
+def make_spec(length="kpc", velocity="km/s", mass="1e10 Msun", seed=3):
+    return spec_from_dict({
+        "model": {"name": "writer test", "seed": seed},
+        "output": {"length_unit": length, "velocity_unit": velocity, "mass_unit": mass},
+        "components": {
+            "halo": {"kind": "halo", "profile": "hernquist", "mass": "1e12 Msun",
+                     "scale_radius": "20 kpc", "particles": 3000},
+            "disk": {"kind": "disk", "mass": "5e10 Msun", "scale_length": "3 kpc",
+                     "scale_height": "0.3 kpc", "toomre_q": 1.5, "particles": 2000},
+        }})
+
+
+PLANS = [Plan("halo", "halo", 3000), Plan("disk", "disk", 2000)]
+
+
+def invented_particles(seed=0):
+    """name -> (position kpc, velocity km/s, mass Msun), random but finite."""
+    rng = np.random.default_rng(seed)
+    out = {}
+    for p, scale, m in zip(PLANS, (50.0, 5.0), (3e8, 2.5e7)):
+        out[p.name] = (rng.normal(0, scale, (p.count, 3)), rng.normal(0, 150, (p.count, 3)),
+                       np.full(p.count, m))
+    return out
+
+
+def chunks_of(parts, size, rng=None):
+    """ParticleChunks of ``size``; shuffled order if ``rng`` (the writer takes any order)."""
+    chunks = []
+    for name, (x, v, m) in parts.items():
+        for lo in range(0, len(m), size):
+            chunks.append(ParticleChunk(name, lo, x[lo:lo + size], v[lo:lo + size], m[lo:lo + size]))
+    if rng is not None:
+        rng.shuffle(chunks)
+    return chunks
+
+
+def curve():
+    r = np.linspace(0.5, 30, 20)
+    return r, {"total": np.full(20, 200.0), "halo": np.full(20, 150.0), "disk": np.full(20, 130.0)}
+
+
+def write(path, spec, parts, precision="double", compress=None, size=700, offset=None):
+    with SnapshotWriter(path, spec, PLANS, precision, compress) as w:
+        for chunk in chunks_of(parts, size, np.random.default_rng(1)):
+            w.append(chunk)
+        w.finish(*curve(), offset=offset)
+        w.commit()
+    return w
+
+
+@pytest.mark.parametrize("precision", ["double", "single"])
+@pytest.mark.parametrize("compress", [None, "gzip", "lzf"])
+def test_round_trip_stores_exactly_what_it_is_given(tmp_path, precision, compress):
+    spec = make_spec()
+    parts = invented_particles()
+    path = tmp_path / "snap.h5"
+    no_shift = (np.zeros(3), np.zeros(3))
+    w = write(path, spec, parts, precision, compress, offset=no_shift)
+    dtype = {"double": np.float64, "single": np.float32}[precision]
+    # astropy's factor for 1e10 Msun is 1e-10 to the last bit or two
+    scale = w.units.mass_scale
+    assert scale == pytest.approx(1e-10, rel=1e-15)
+    snap = read_snapshot(path)
+    assert list(snap.components) == ["halo", "disk"]          # model-file order
+    for name, (x, v, m) in parts.items():
+        c = snap.components[name]
+        # kpc and km/s have scale 1 exactly; the mass is one float64 multiplication
+        # before the cast, so the same expression must give the same bits.
+        assert np.array_equal(c["position"], x.astype(dtype))
+        assert np.array_equal(c["velocity"], v.astype(dtype))
+        assert np.array_equal(c["mass"], (m * scale).astype(dtype))
+        assert c["position"].dtype == dtype and c["kind"] == name
+    ids = np.concatenate([c["id"] for c in snap.components.values()])
+    assert ids.dtype == np.uint64 and np.unique(ids).size == ids.size == 5000
+    with h5py.File(path, "r") as f:
+        for name in ("halo", "disk"):
+            d = f[f"particles/{name}/position"]
+            # explicitly little-endian on disk (schema), whatever the machine
+            assert d.dtype.str == np.dtype(dtype).newbyteorder("<").str
+            if compress is None:
+                assert d.chunks is None and d.compression is None   # plain contiguous
+            else:
+                assert d.compression == compress and d.shuffle
+
+
+def test_root_and_group_attributes_follow_the_schema(tmp_path):
+    spec = make_spec()
+    parts = invented_particles()
+    path = tmp_path / "snap.h5"
+    write(path, spec, parts)
+    with h5py.File(path, "r") as f:
+        assert set(f.attrs) == ROOT_KEYS
+        assert f.attrs["schema"] == "icgen-snapshot" and f.attrs["schema_version"] == 1
+        assert f.attrs["seed"] == 3
+        # ISO 8601 in UTC (schema): parseable, with a zero offset
+        import datetime
+        created = datetime.datetime.fromisoformat(f.attrs["created"].replace("Z", "+00:00"))
+        assert created.utcoffset() == datetime.timedelta(0)
+        assert set(f["particles"]) == {"halo", "disk"}
+        for name, (x, v, m) in parts.items():
+            g = f[f"particles/{name}"]
+            assert g.attrs["kind"] == name and g.attrs["count"] == len(m)
+            # total_mass: float64 sum of the written masses, 1e-10 of the Msun values;
+            # relative 1e-12 covers the summation order (N eps ~ 1e-12 for N ~ 3000)
+            assert g.attrs["total_mass"] == pytest.approx(m.sum() * 1e-10, rel=1e-12)
+        curve_keys = {"radius", "v_circ_total", "v_circ_halo", "v_circ_disk"}
+        assert set(f["model/rotation_curve"]) == curve_keys
+    # the stored model file loads back to the same spec
+    assert spec_from_toml_text(read_snapshot(path).config) == spec
+
+
+def test_centring_pass_subtracts_the_given_offset(tmp_path):
+    spec = make_spec()
+    parts = invented_particles()
+    path = tmp_path / "snap.h5"
+    w = write(path, spec, parts, offset=None)      # the writer's own mass-weighted mean
+    m_all = np.concatenate([p[2] for p in parts.values()])
+    x0 = np.concatenate([p[0] for p in parts.values()]).T @ m_all / m_all.sum()
+    v0 = np.concatenate([p[1] for p in parts.values()]).T @ m_all / m_all.sum()
+    # the writer summed chunk by chunk in another order: float64 rounding, ~1e-13 relative
+    np.testing.assert_allclose(w.centre[0], x0, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(w.centre[1], v0, rtol=1e-12, atol=1e-12)
+    snap = read_snapshot(path)
+    for name, (x, v, m) in parts.items():
+        np.testing.assert_array_equal(snap.components[name]["position"], x - w.centre[0])
+        np.testing.assert_array_equal(snap.components[name]["velocity"], v - w.centre[1])
+    mass = np.concatenate([c["mass"] for c in snap.components.values()])
+    pos = np.concatenate([c["position"] for c in snap.components.values()])
+    # the new centre of mass is zero up to float64 rounding of coordinates ~50 kpc
+    assert np.all(np.abs(pos.T @ mass / mass.sum()) < 1e-12)
+
+
+def test_unit_conversion_and_G_in_output_units(tmp_path):
+    spec = make_spec(length="pc", velocity="m/s", mass="Msun")
+    parts = invented_particles()
+    path = tmp_path / "snap.h5"
+    write(path, spec, parts, offset=(np.zeros(3), np.zeros(3)))
+    snap = read_snapshot(path, quantity=True)
+    for name, (x, v, m) in parts.items():
+        c = snap.components[name]
+        # one float64 multiplication each way: a few ulp
+        np.testing.assert_allclose(c["position"].to_value(u.kpc), x, rtol=1e-14)
+        np.testing.assert_allclose(c["velocity"].to_value(u.km / u.s), v, rtol=1e-14)
+        np.testing.assert_allclose(c["mass"].to_value(u.Msun), m, rtol=1e-14)
+    # G in pc (m/s)^2 / Msun by hand from SI: G_SI * M_sun / pc, with the IAU parsec
+    expected = const.G.si.value * const.M_sun.si.value / PC_M
+    assert snap.attrs["G"] == pytest.approx(expected, rel=1e-12)
+    assert snap.G.to_value(u.m**3 / u.kg / u.s**2) == pytest.approx(const.G.si.value, rel=1e-12)
+
+
+def test_half_mass_radius_of_a_uniform_sphere(tmp_path):
+    # Uniform sphere of radius 1: M(<r) = r^3, so r_half = 2^(-1/3) = 0.7937 (elementary).
+    # The sample median has standard deviation sqrt(1/4 / N) / (dM/dr) = 0.5 / sqrt(N)
+    # / (3 r_half^2) = 8.4e-4 for N = 1e5; 4e-3 is ~5 sigma and ~20 bin widths.
+    rng = np.random.default_rng(5)
+    n = 100_000
+    d = rng.normal(size=(n, 3))
+    x = d / np.linalg.norm(d, axis=1)[:, None] * rng.random(n)[:, None] ** (1 / 3)
+    spec = make_spec()
+    plans = [Plan("halo", "halo", n), Plan("disk", "disk", 1)]
+    with SnapshotWriter(tmp_path / "s.h5", spec, plans) as w:
+        w.append(ParticleChunk("halo", 0, x, np.zeros((n, 3)), np.ones(n)))
+        w.append(ParticleChunk("disk", 0, np.zeros((1, 3)), np.zeros((1, 3)), np.ones(1)))
+        w.finish(np.ones(2), {k: np.ones(2) for k in ("total", "halo", "disk")})
+        w.commit()
+    radii = w.half_mass_radii()
+    assert radii["halo"] == pytest.approx(2 ** (-1 / 3), abs=4e-3)
+    assert radii["disk"] == 0.0
+
+
+@pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
+def test_non_finite_value_stops_the_writer_and_leaves_nothing(tmp_path, bad):
+    spec = make_spec()
+    parts = invented_particles()
+    parts["disk"][1][1234, 2] = bad
+    path = tmp_path / "snap.h5"
+    with pytest.raises(NonFiniteError, match=r"component 'disk': velocity of particle 1234"):
+        write(path, spec, parts)
+    assert os.listdir(tmp_path) == []
+
+
+def test_overflow_in_single_precision_is_caught(tmp_path):
+    # 1e36 kpc is finite, but in pc it is 1e39, above the float32 maximum 3.4e38 (IEEE
+    # 754), so the cast to single precision would write inf.
+    spec = make_spec(length="pc")
+    parts = invented_particles()
+    parts["halo"][0][7, 0] = 1e36
+    with pytest.raises(NonFiniteError, match=r"'halo': position of particle 7 is \(inf, "):
+        write(tmp_path / "s.h5", spec, parts, precision="single")
+    assert os.listdir(tmp_path) == []
+
+
+def test_partial_file_is_never_taken_for_a_snapshot(tmp_path):
+    spec = make_spec()
+    parts = invented_particles()
+    path = tmp_path / "snap.h5"
+    with pytest.raises(KeyboardInterrupt):
+        with SnapshotWriter(path, spec, PLANS) as w:
+            for chunk in chunks_of(parts, 1000)[:2]:
+                w.append(chunk)
+            w._file.flush()
+            shutil.copy(partial_path(path), tmp_path / "copy.h5")
+            raise KeyboardInterrupt     # as an interrupted build would
+    assert sorted(os.listdir(tmp_path)) == ["copy.h5"]
+    with pytest.raises(ModelError, match="not an icgen snapshot"):
+        read_snapshot(tmp_path / "copy.h5")
+
+
+def test_reader_rejects_other_files_with_one_line_errors(tmp_path):
+    text = tmp_path / "notes.h5"
+    text.write_text("not hdf5\n")
+    other = tmp_path / "other.h5"
+    with h5py.File(other, "w") as f:
+        f.create_dataset("x", data=np.arange(3))
+    newer = tmp_path / "newer.h5"
+    write(newer, make_spec(), invented_particles())
+    with h5py.File(newer, "a") as f:
+        f.attrs["schema_version"] = 2
+    cases = [(tmp_path / "missing.h5", "no such file"), (text, "not an HDF5 file"),
+             (other, "not an icgen snapshot"), (newer, "schema_version 2"),
+             (tmp_path, "is a folder")]
+    for path, words in cases:
+        with pytest.raises(ModelError, match=words) as exc:
+            read_header(path)
+        assert "\n" not in str(exc.value)
+
+
+def test_describe_reads_attributes_only(tmp_path):
+    path = tmp_path / "snap.h5"
+    write(path, make_spec(), invented_particles(), precision="single", compress="gzip")
+    text = describe(path)
+    assert "writer test (seed 3)" in text
+    assert "float32, gzip" in text and "1e10 Msun" in text
+    assert text.index("halo") < text.index("disk")      # file order kept
+
+
+def test_writer_rejects_bad_options(tmp_path):
+    with pytest.raises(ModelError, match="--precision"):
+        SnapshotWriter(tmp_path / "s.h5", make_spec(), PLANS, precision="half")
+    with pytest.raises(ModelError, match="--compress"):
+        SnapshotWriter(tmp_path / "s.h5", make_spec(), PLANS, compress="zip")
+    assert os.listdir(tmp_path) == []
+
+
+def test_gas_internal_energy_is_stored_in_velocity_unit_squared(tmp_path):
+    # schema: gas particles also carry internal_energy (specific, velocity_unit^2)
+    from types import SimpleNamespace
+    spec = make_spec(velocity="m/s")
+    plans = [Plan("gas", "gas_disk", 500)]
+    rng = np.random.default_rng(9)
+    x, v = rng.normal(0, 5, (500, 3)), rng.normal(0, 100, (500, 3))
+    energy = rng.uniform(50, 150, 500)                      # (km/s)^2
+    chunk = SimpleNamespace(component="gas", start=0, position=x, velocity=v,
+                            mass=np.full(500, 1e5), internal_energy=energy)
+    with SnapshotWriter(tmp_path / "gas.h5", spec, plans) as w:
+        w.append(chunk)
+        w.finish(np.ones(2), {"total": np.ones(2), "gas": np.ones(2)},
+                 offset=(np.zeros(3), np.zeros(3)))
+        w.commit()
+    snap = read_snapshot(tmp_path / "gas.h5", quantity=True)
+    got = snap.components["gas"]["internal_energy"]
+    # (km/s)^2 -> (m/s)^2 is a factor 1e6, one float64 multiplication: a few ulp
+    assert got.unit.is_equivalent(u.m**2 / u.s**2)
+    np.testing.assert_allclose(got.to_value((u.km / u.s) ** 2), energy, rtol=1e-14)
+    np.testing.assert_allclose(read_snapshot(tmp_path / "gas.h5").components["gas"]
+                               ["internal_energy"], energy * 1e6, rtol=1e-14)
+    # a gas chunk without internal energy is refused, and nothing is left behind
+    del chunk.internal_energy
+    with pytest.raises(RuntimeError, match="internal_energy"):
+        with SnapshotWriter(tmp_path / "gas2.h5", spec, plans) as w:
+            w.append(chunk)
+    assert sorted(os.listdir(tmp_path)) == ["gas.h5"]
