@@ -58,7 +58,11 @@ class CurveSummary:
 def summarize(model, radii=None, r_search=None):
     """v_max and where, v_c and disk fraction v_disk/v_total at 2.2 R_d (sum of disks in
     quadrature), enclosed masses and dark-to-baryonic ratio within ``radii`` (kpc)."""
-    r_out = default_radii(model)[-1] if r_search is None else r_search
+    if r_search is None:
+        # the whole galaxy: out to the largest truncation radius (NFW r200) or extent/10
+        outer = [getattr(c, "r_t", c.extent / 10) for c in model.components.values()]
+        r_search = max([default_radii(model)[-1]] + outer)
+    r_out = r_search
     grid = np.geomspace(r_out * 1e-3, r_out, 400)
     v = model.circular_speed(grid)
     i = int(np.argmax(v))

@@ -14,7 +14,6 @@ first point of the block.
 import warnings
 
 import numpy as np
-from scipy.stats import qmc
 
 # Particles per block: a power of two, so that every block of a Sobol sequence is a
 # (t, m, d)-net, and large enough that per-block overheads (numba calls,
@@ -67,6 +66,7 @@ def block_uniforms(seed, component_index, block, n, first, quiet_start=False):
     """
     if quiet_start:
         ss = np.random.SeedSequence(seed, spawn_key=(component_index, _SOBOL_KEY))
+        from scipy.stats import qmc   # lazy: importing scipy.stats costs ~2 s
         engine = qmc.Sobol(DIMENSIONS, scramble=True, rng=np.random.default_rng(ss))
         if first > 0:   # scipy rejects fast_forward(0)
             engine.fast_forward(first)
