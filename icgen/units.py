@@ -63,7 +63,9 @@ def _describe(unit):
     for known, text in _EXAMPLES.items():
         if unit == known:
             return text
-    return f"a {unit.physical_type}", f"'1 {unit.to_string()}'"
+    kind = str(unit.physical_type)
+    article = "an" if kind[:1] in "aeiou" else "a"
+    return f"{article} {kind}", f"'1 {unit.to_string()}'"
 
 
 def _first_sentence_of(exc):

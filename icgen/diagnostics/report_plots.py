@@ -1,0 +1,297 @@
+"""The report of ``icgen check``: result rows (measured, predicted, error, verdict), the
+terminal table, the JSON file of every figure and the multi-panel PNG (measured points with
+their standard errors against the model's predictions, drawn from the result alone)."""
+import json
+import os
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+@dataclass
+class Comparison:
+    """One row of the check: a measured quantity in bins against its prediction.
+
+    ``error`` is the standard error of each measured value; a bin passes when
+    |measured - predicted| <= limit * error. ``x`` holds bin centres (kpc) or indices.
+    """
+    quantity: str
+    component: str
+    unit: str
+    x: list
+    measured: list
+    predicted: list
+    error: list
+    tested: list
+    limit: float
+    prediction: str
+    labels: list = field(default_factory=list)
+
+    def deviations(self):
+        m, p, e = (np.asarray(a, float) for a in (self.measured, self.predicted, self.error))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            d = (m - p) / e
+        return np.where(np.asarray(self.tested, bool), d, np.nan)
+
+    def worst(self):
+        """(index, deviation in errors) of the worst tested bin; (None, nan) if none."""
+        d = self.deviations()
+        if np.all(np.isnan(d)):
+            return None, float("nan")
+        i = int(np.nanargmax(np.abs(d)))
+        return i, float(d[i])
+
+    @property
+    def passed(self):
+        d = self.deviations()
+        d = d[~np.isnan(d)]
+        return bool(np.all(np.abs(d) <= self.limit))
+
+    def to_dict(self):
+        out = asdict(self)
+        out["deviation"] = [None if np.isnan(v) else float(v) for v in self.deviations()]
+        out["passed"] = self.passed
+        return out
+
+
+@dataclass
+class CheckResult:
+    """All rows of a check, the settings and timings."""
+    model: str
+    path: str | None
+    n_sigma: float
+    particles: dict
+    kinds: dict
+    centre: list
+    settings: dict
+    rows: list = field(default_factory=list)
+    timing: dict = field(default_factory=dict)
+
+    @property
+    def passed(self):
+        return all(r.passed for r in self.rows)
+
+    def failed(self):
+        """(quantity, component) of every failed row."""
+        return [(r.quantity, r.component) for r in self.rows if not r.passed]
+
+    def to_dict(self):
+        return {"model": self.model, "path": self.path, "n_sigma": self.n_sigma,
+                "passed": self.passed, "particles": self.particles, "kinds": self.kinds,
+                "centre": self.centre,
+                "settings": self.settings, "timing": self.timing,
+                "rows": [r.to_dict() for r in self.rows]}
+
+    def write_json(self, path):
+        with open(path, "w", encoding="utf-8") as fh:
+            json.dump(_json_safe(self.to_dict()), fh, indent=1, allow_nan=False)
+
+    def format_table(self):
+        from ..textout import format_table
+        headers = ["quantity", "component", "bins", "worst dev", "at", "measured",
+                   "predicted", "unit", "status"]
+        rows = []
+        for r in self.rows:
+            i, d = r.worst()
+            where = "" if i is None else (r.labels[i] if r.labels else f"{r.x[i]:.3g}")
+            shown = (lambda v: "" if i is None else f"{v[i]:.4g}")
+            rows.append([r.quantity, r.component, f"{sum(r.tested)}/{len(r.tested)}",
+                         "-" if i is None else f"{d:+.2f} err", where, shown(r.measured),
+                         shown(r.predicted), r.unit, "pass" if r.passed else "FAIL"])
+        n_fail = len(self.failed())
+        title = (f"icgen check: {self.model}" + (f" ({self.path})" if self.path else "")
+                 + f"; tolerance {self.n_sigma:g} standard errors per bin")
+        verdict = ("all checks pass" if n_fail == 0
+                   else f"{n_fail} of {len(self.rows)} checks FAIL")
+        return format_table(headers, rows, title=title) + "\n" + verdict
+
+
+def _json_safe(x):
+    """Replace NaN/inf by None and numpy scalars by Python numbers, recursively."""
+    if isinstance(x, dict):
+        return {k: _json_safe(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_json_safe(v) for v in x]
+    if isinstance(x, (np.generic,)):
+        x = x.item()
+    if isinstance(x, float) and not np.isfinite(x):
+        return None
+    return x
+
+
+def row(quantity, component, unit, x, measured, predicted, error, tested, limit,
+         prediction, labels=()):
+    as_list = lambda a: [float(v) for v in np.atleast_1d(np.asarray(a, float))]
+    return Comparison(quantity, component, unit, as_list(x), as_list(measured),
+                      as_list(predicted), as_list(error),
+                      [bool(t) for t in np.atleast_1d(tested)], float(limit), prediction,
+                      list(labels))
+
+
+def write_outputs(result, json_path=None, report_dir=None):
+    """Write the JSON file and/or the report folder (check.json, check.png); returns the
+    paths written."""
+    written = []
+    if json_path:
+        result.write_json(json_path)
+        written.append(str(json_path))
+    if report_dir:
+        os.makedirs(report_dir, exist_ok=True)
+        path = os.path.join(report_dir, "check.json")
+        result.write_json(path)
+        written.append(path)
+        written.append(plot_report(result, os.path.join(report_dir, "check.png")))
+    return written
+
+
+# ------------------------------------------------------------------ the PNG
+
+PANELS = (3, 3)
+
+
+def _rows(result, quantity, kinds=None):
+    """Rows of one quantity, optionally only for components of the given kinds."""
+    return [r for r in result.rows if r.quantity == quantity
+            and (kinds is None or result.kinds.get(r.component) in kinds)]
+
+
+def _style(result, name):
+    from .plots import STYLES
+    if name == "total":
+        return "k", "-"
+    return STYLES.get(result.kinds.get(name), ("tab:orange", "-"))
+
+
+def _points(ax, row, color, label=None, scale=1.0, marker="o"):
+    """Measured values with error bars (untested bins hollow) and the prediction as a line."""
+    x, m, p, e = (np.asarray(a, float) for a in (row.x, row.measured, row.predicted, row.error))
+    t = np.asarray(row.tested, bool)
+    ax.plot(x, p * scale, color=color, lw=1.5, label=label)
+    ax.errorbar(x[t], m[t] * scale, yerr=e[t] * scale, fmt=marker, ms=3.5, color=color,
+                elinewidth=1, capsize=0)
+    if (~t).any():
+        ax.plot(x[~t], m[~t] * scale, marker, ms=3.5, mfc="none", color=color)
+
+
+def _rotation_curve(ax, result):
+    for row in _rows(result, "v_c midplane"):
+        color, ls = _style(result, row.component)
+        _points(ax, row, color, row.component)
+    ax.set_xlabel("R [kpc]")
+    ax.set_ylabel(r"$v_c$ [km s$^{-1}$]")
+    ax.set_title("Midplane rotation curve (lines: model)")
+    ax.set_ylim(0, None)
+    ax.legend(frameon=False, fontsize=7)
+
+
+def _residuals(ax, result):
+    for row in _rows(result, "v_c midplane"):
+        color, _ = _style(result, row.component)
+        ax.plot(row.x, row.deviations(), "o-", ms=3, lw=0.8, color=color, label=row.component)
+    _band(ax, result.n_sigma)
+    ax.set_xscale("log")
+    ax.set_xlabel("R [kpc]")
+    ax.set_ylabel("(measured - model) / error")
+    ax.set_title("Rotation-curve residuals")
+
+
+def _band(ax, n):
+    ax.axhspan(-n, n, color="tab:green", alpha=0.08)
+    ax.axhline(0, color="0.5", lw=0.8)
+
+
+def _profiles(ax, result, quantity, kinds, ylabel, title):
+    for kind in kinds:
+        for row in _rows(result, quantity, (kind,)):
+            color, _ = _style(result, row.component)
+            _points(ax, row, color, row.component)
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("R [kpc]" if "disk" in kinds else "r [kpc]")
+    ax.set_ylabel(ylabel)
+    ax.set_title(title)
+    ax.legend(frameon=False, fontsize=7)
+
+
+def _vertical(ax, result):
+    for row in _rows(result, "vertical profile"):
+        groups = {}
+        for i, label in enumerate(row.labels):
+            groups.setdefault(label.split(",")[0], []).append(i)
+        for k, (label, ids) in enumerate(groups.items()):
+            m, p, e = (np.asarray(a, float)[ids] for a in (row.measured, row.predicted, row.error))
+            x = np.asarray(row.x, float)[ids] * (1 + 0.03 * k)
+            ax.errorbar(x, m / p, yerr=e / p, fmt="o-", ms=3, lw=0.8,
+                        label=f"{row.component}: {label} kpc")
+    ax.axhline(1, color="0.5", lw=0.8)
+    ax.set_xscale("log")
+    ax.set_xlabel("|z| [kpc]")
+    ax.set_ylabel("measured / model fraction")
+    ax.set_title("Disk vertical profile")
+    ax.legend(frameon=False, fontsize=6)
+
+
+def _kinematics(ax, result, keys, kinds, title):
+    markers = "osD^v"
+    colors = ["tab:blue", "tab:red", "tab:green", "tab:purple", "tab:brown"]
+    for j, key in enumerate(keys):
+        for i, row in enumerate(_rows(result, key, kinds)):
+            label = key if i == 0 else None
+            _points(ax, row, colors[j % 5], label, marker=markers[i % 5])
+    ax.set_xscale("log")
+    ax.set_xlabel("R [kpc]" if "disk" in kinds else "r [kpc]")
+    ax.set_ylabel(r"km s$^{-1}$")
+    ax.set_title(title)
+    ax.legend(frameon=False, fontsize=7)
+
+
+def _toomre(ax, result):
+    for row in _rows(result, "Toomre Q"):
+        _points(ax, row, "tab:blue", row.component)
+    ax.axhline(1, color="tab:red", lw=0.8, ls="--")
+    ax.set_xscale("log")
+    ax.set_xlabel("R [kpc]")
+    ax.set_ylabel("Toomre Q")
+    ax.set_title("Toomre Q from the particles")
+    ax.legend(frameon=False, fontsize=7)
+
+
+def _summary(ax, result):
+    names = [f"{r.quantity} ({r.component})" for r in result.rows]
+    worst = [abs(r.worst()[1]) / r.limit * result.n_sigma if r.worst()[0] is not None else 0
+             for r in result.rows]
+    colors = ["tab:green" if r.passed else "tab:red" for r in result.rows]
+    y = np.arange(len(names))
+    ax.barh(y, worst, color=colors)
+    ax.axvline(result.n_sigma, color="k", lw=0.8, ls="--")
+    ax.set_yticks(y, names, fontsize=5)
+    ax.invert_yaxis()
+    ax.set_xlabel("worst |deviation| / error (scaled to the tolerance)")
+    ax.set_title("All checks: " + ("PASS" if result.passed else f"{len(result.failed())} FAIL"))
+
+
+def plot_report(result, path):
+    """Write the 3 x 3 panel report of a CheckResult to ``path`` (PNG); returns path."""
+    from .plots import plt
+    fig, axes = plt.subplots(*PANELS, figsize=(16, 13.5), dpi=100)
+    a = axes.ravel()
+    _rotation_curve(a[0], result)
+    _residuals(a[1], result)
+    _profiles(a[2], result, "surface density", ("disk", "gas_disk"),
+              r"$\Sigma$ [M$_\odot$ kpc$^{-2}$]", "Disk surface density")
+    _vertical(a[3], result)
+    _profiles(a[4], result, "density", ("halo", "bulge"), r"$\rho$ [M$_\odot$ kpc$^{-3}$]",
+              "Spheroid densities")
+    _kinematics(a[5], result, ("mean v_phi", "sigma_R", "sigma_phi", "sigma_z"),
+                ("disk", "gas_disk"),
+                "Disk kinematics")
+    _kinematics(a[6], result, ("sigma_r", "sigma_theta", "sigma_phi"), ("halo", "bulge"),
+                "Spheroid dispersions")
+    _toomre(a[7], result)
+    _summary(a[8], result)
+    for ax in a:
+        ax.grid(alpha=0.2, which="both")
+    fig.suptitle(f"icgen check: {result.model}" + (f"  ({result.path})" if result.path else ""))
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+    return path
