@@ -205,3 +205,26 @@ def test_cli_stability_bad_input_exit_2(argv, key, capsys):
     assert main(argv) == 2
     err = capsys.readouterr().err.strip()
     assert "\n" not in err and key in err
+
+
+def test_gas_q_and_two_component_criterion_by_hand():
+    from icgen.diagnostics.stability import combined_q, gas_toomre_q
+    from icgen.units import G
+    # Q_g = c_s kappa/(pi G Sigma) (Toomre 1964 for a fluid): c_s = 10 km/s,
+    # kappa = 50 km/s/kpc, Sigma = 1e7 Msun/kpc^2 -> 500/(pi * 4.300917e-6 * 1e7) = 3.7005
+    assert gas_toomre_q(10.0, 50.0, 1e7) == pytest.approx(500 / (np.pi * G * 1e7), rel=1e-12)
+    assert gas_toomre_q(10.0, 50.0, 1e7) == pytest.approx(3.7005, rel=1e-4)
+    # Wang & Silk (1994): 1/Q = 1/Q_s + 1/Q_g; Q_s = 2, Q_g = 1 -> 2/3
+    assert combined_q([2.0, 1.0]) == pytest.approx(2 / 3, rel=1e-12)
+
+
+def test_stability_report_of_gas_rich_model():
+    from icgen.diagnostics.stability import analyse
+    from icgen.model import GalaxyModel
+    from icgen.config import load_spec
+    rep = analyse(GalaxyModel(load_spec("configs/gas_rich_spiral.toml")))
+    (g,) = rep.gas
+    # the combined disk is less stable than either component alone
+    assert g.q_eff_min < g.q_min and g.q_eff_min < rep.disks[0].q_min
+    names = [v.criterion for v in rep.verdicts]
+    assert "gas Q (gas)" in names and "stars + gas Q (gas)" in names

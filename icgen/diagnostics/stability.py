@@ -22,6 +22,9 @@ Published criteria (each formula is a small pure function below):
   their dark-matter-only runs): N(<r) halo particles, rhobar(r) the halo's mean enclosed
   density, rho_crit of the model's cosmology. Their optimal softening, eq. 15:
   eps_opt = 4 r200 / sqrt(N200).
+- Gas disks: Q_g = c_s kappa / (pi G Sigma_g) (Toomre 1964; Goldreich & Lynden-Bell 1965,
+  MNRAS 130, 97, for a fluid), and the star + gas criterion of Wang & Silk (1994, ApJ 427,
+  759, eq. 12): 1/Q_eff = 1/Q_stars + 1/Q_gas, summed over every stellar disk and gas disk.
 - Ludlow et al. (2019, MNRAS 488, L123): halo particles much heavier than disk particles
   heat the disk by two-body scattering; a mass ratio above ~5 deserves a caution
   (common practice).
@@ -112,6 +115,17 @@ def first_crossing(x, y, level):
     return float(np.exp(np.log(x[i - 1]) + t * (np.log(x[i]) - np.log(x[i - 1]))))
 
 
+def gas_toomre_q(sound_speed, kappa, surface_density):
+    """Q_g = c_s kappa / (pi G Sigma_g) of a gas disk (Toomre 1964; Goldreich & Lynden-Bell
+    1965); km/s, (km/s)/kpc, Msun/kpc^2."""
+    return np.asarray(sound_speed) * kappa / (np.pi * G * np.asarray(surface_density))
+
+
+def combined_q(qs):
+    """Wang & Silk (1994, ApJ 427, 759) approximation: 1/Q_eff = sum_i 1/Q_i."""
+    return 1.0 / sum(1.0 / np.asarray(q) for q in qs)
+
+
 # ------------------------------------------------------------------ model analysis
 
 
@@ -140,6 +154,19 @@ class DiskStability:
 
 
 @dataclass
+class GasStability:
+    """Gas Q(R) and the star + gas Q_eff(R) (R kpc) of one gas disk."""
+    name: str
+    radius: list
+    q: list
+    q_eff: list
+    q_min: float
+    r_q_min: float
+    q_eff_min: float
+    r_q_eff_min: float
+
+
+@dataclass
 class HaloResolution:
     """Power et al. (2003) numbers of one halo (kpc, Msun)."""
     name: str
@@ -155,6 +182,7 @@ class StabilityReport:
     """All numbers of ``icgen stability`` (kpc, km/s, Msun)."""
     model: str
     disks: list = field(default_factory=list)
+    gas: list = field(default_factory=list)
     bar_parameter: float | None = None
     v_max: float | None = None
     disk_mass: float | None = None
@@ -199,6 +227,22 @@ def disk_stability(model, name):
     x22 = float(swing_parameter(model.potential.kappa(r22), r22, disk.surface_density(r22))[0])
     return DiskStability(name, disk.R_d, R.tolist(), q.tolist(), x2.tolist(), float(q[i]),
                          float(R[i]), x22)
+
+
+def gas_stability(model, name):
+    """GasStability of gas disk ``name`` on log radii 0.05 - 10 R_d (with the stellar disks'
+    own Q in the Wang & Silk sum)."""
+    gas = model.components[name]
+    R = np.geomspace(CURVE_RANGE[0] * gas.R_d, min(CURVE_RANGE[1] * gas.R_d, gas.extent),
+                     CURVE_POINTS)
+    kappa = model.potential.kappa(R)
+    q_g = gas_toomre_q(gas.cs, kappa, gas.surface_density(R))
+    stars = [toomre_q(disk_sigma_r(model, d.name, R), kappa, d.surface_density(R))
+             for d in model.disks]
+    q_eff = combined_q(stars + [q_g])
+    i, j = int(np.argmin(q_g)), int(np.argmin(q_eff))
+    return GasStability(name, R.tolist(), q_g.tolist(), q_eff.tolist(), float(q_g[i]),
+                        float(R[i]), float(q_eff[j]), float(R[j]))
 
 
 def _halo_r200(comp, rho_crit):
@@ -253,6 +297,7 @@ def analyse(model, plans=None):
     plans = sampling.plan(model) if plans is None else plans
     rep = StabilityReport(model.name)
     rep.disks = [disk_stability(model, d.name) for d in model.disks]
+    rep.gas = [gas_stability(model, g.name) for g in model.gas_disks]
     summary = curve.summarize(model)
     if model.disks:
         rep.v_max = summary.v_max
@@ -288,6 +333,18 @@ def verdicts(rep, model):
                else "weak swing amplification of m = 2" if d.x2_at_22 >= SWING_RANGE[1]
                else "m = 2 amplified, X_2 < 1: disk dominated, prone to bars"),
             "Toomre 1981 (swing amplifier); range: common practice"))
+    for g in rep.gas:
+        out.append(Verdict(
+            f"gas Q ({g.name})", g.q_min, f"min Q_g >= {Q_THRESHOLD:g}", g.q_min >= Q_THRESHOLD,
+            f"min Q_g = {g.q_min:.2f} at R = {g.r_q_min:.2f} kpc: "
+            + ("locally stable" if g.q_min >= Q_THRESHOLD else "gas locally unstable"),
+            "Toomre 1964; Goldreich & Lynden-Bell 1965, MNRAS 130, 97"))
+        out.append(Verdict(
+            f"stars + gas Q ({g.name})", g.q_eff_min, f"min Q_eff >= {Q_THRESHOLD:g}",
+            g.q_eff_min >= Q_THRESHOLD,
+            f"min Q_eff = {g.q_eff_min:.2f} at R = {g.r_q_eff_min:.2f} kpc: "
+            + ("stable" if g.q_eff_min >= Q_THRESHOLD else "the two-component disk is unstable"),
+            "Wang & Silk 1994, ApJ 427, 759"))
     if rep.bar_parameter is not None:
         eps = rep.bar_parameter
         out.append(Verdict(
@@ -363,6 +420,9 @@ def plot_stability(rep, path):
         R = np.asarray(d.radius)
         ax_q.plot(R, d.q, lw=2, label=d.name)
         ax_x.plot(R, d.x2, lw=2, label=d.name)
+    for g in rep.gas:
+        ax_q.plot(g.radius, g.q, lw=2, ls="--", label=f"{g.name} (gas)")
+        ax_q.plot(g.radius, g.q_eff, lw=2, color="k", label="stars + gas (Wang & Silk 1994)")
     ax_q.axhline(Q_THRESHOLD, color="tab:red", lw=1, ls="--", label="Q = 1 (Toomre 1964)")
     ax_x.axhspan(*SWING_RANGE, color="tab:orange", alpha=0.15, label="1 < X$_2$ < 3")
     for ax, label in ((ax_q, "Toomre Q"), (ax_x, r"$X_2 = \kappa^2 R / (4 \pi G \Sigma)$")):
