@@ -193,7 +193,7 @@ def test_edge_on_disk_gives_a_major_axis_curve_only(dwarf, cold):
 
 
 def test_gas_tracer_lines_have_the_sound_speed():
-    # a gas disk (isothermal, T = 1e4 K) observed as the tracer: every line has the
+    # a gas disk (isothermal, T = 2e4 K) observed as the tracer: every line has the
     # model's sound speed as its width, and the truth shows the pressure support
     # (v_phi below v_c; the gas has no random motions of its own)
     import os
@@ -218,9 +218,11 @@ def test_gas_tracer_lines_have_the_sound_speed():
     obs = observe(parts, Geometry(55.0, 100.0, 15.0, systemic=1000.0),
                   Instrument(beam=15.0, pixel=5.0, channel=4.0), tracer="gas", model=model)
     t, s = obs.truth, obs.scores()
-    sel = (s["in_beams"] > 3) & (t["n_particles"] > 2000)
+    # beyond four beams: with c_s = 11.6 km/s lines and a 15" beam the ring at ~3 beams is
+    # still pulled 3% low by beam smearing (measured), as on the rising part of any curve
+    sel = (s["in_beams"] > 4) & (t["n_particles"] > 2000)
     assert sel.sum() >= 8
     assert np.all(t["asymmetric_drift"].value[sel] > 0)
-    # recovered within 3 % of the gas's mean v_phi beyond three beams (noise-free)
+    # recovered within 3 % of the gas's mean v_phi beyond four beams (noise-free)
     np.testing.assert_allclose(obs.rings["v_rot"].value[sel], t["v_phi_mean"].value[sel],
                                rtol=0.03)
