@@ -308,6 +308,10 @@ def test_gas_disk_checks_and_a_wrong_temperature_fails():
                 "temperature": "1e4 K", "particles": 20_000}})
     parts = sampling.sample(model)
     assert check.check_particles(model, parts).passed
+    thick = {k: dict(v) for k, v in parts.items()}
+    thick["gas"]["position"] = parts["gas"]["position"] * np.array([1.0, 1.0, 1.3])
+    # a layer 30% too thick fails its vertical profile against the hydrostatic column
+    assert ("vertical profile", "gas") in check.check_particles(model, thick).failed()
     parts["gas"]["internal_energy"] = parts["gas"]["internal_energy"] * 1.1
     assert set(check.check_particles(model, parts).failed()) == {
         ("internal energy", "gas"), ("virial 2T/|W|", "gas")}

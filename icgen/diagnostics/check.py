@@ -15,7 +15,8 @@ tested bin does. Predictions:
   averaged total potential with the Osipkov-Merritt beta = r^2/(r^2 + r_a^2) (Binney &
   Tremaine 2008, eq. 4.215; equal to the second moment of the Eddington or
   Osipkov-Merritt DF), from icgen.sampling.spheroid_velocities;
-- gas disks: surface density, the pressure-supported rotation of icgen.sampling.gas and
+- gas disks: surface density, the vertical profile of the hydrostatic layer at each annulus,
+  the pressure-supported rotation of icgen.sampling.gas and
   the internal energy c_s^2/(gamma - 1) of the isothermal gas;
 - Toomre Q = sigma_R kappa / (3.36 G Sigma) (Toomre 1964, ApJ 139, 1217) with measured and
   predicted sigma_R and Sigma;
@@ -211,15 +212,18 @@ def _disk_rows(model, name, p, pred, n_sigma):
 
 
 def _gas_rows(model, name, p, n_sigma):
-    """Surface density, mean rotation and internal energy of one isothermal gas disk."""
+    """Surface density, vertical profile, mean rotation and internal energy of one
+    isothermal gas disk."""
     from ..sampling.gas import gas_rotation
     gas, nb = model.components[name], RADIAL_BINS
     R, z, _, v_phi, _ = measure.cylindrical(p["position"], p["velocity"])
-    density, idx, centres, _ = _annuli(gas, name, R, p["mass"], n_sigma)
+    density, idx, centres, cum = _annuli(gas, name, R, p["mass"], n_sigma)
     tested = measure.counts(idx, nb) >= MIN_BIN_PARTICLES
     mean, e_mean = measure.binned_mean(v_phi, idx, nb)
     v_pred = measure.binned_average(gas_rotation(gas, model.potential, R, z)[0], idx, nb)
-    rows = [density, _row("mean v_phi", name, "km/s", centres, mean, v_pred, e_mean, tested,
+    vertical = _vertical_row(gas, name, R, z, _radii_at(cum, VERTICAL_ANNULI, 1e-6 * gas.R_d,
+                                                        gas.extent), n_sigma)
+    rows = [density, vertical, _row("mean v_phi", name, "km/s", centres, mean, v_pred, e_mean, tested,
                           n_sigma, "v_phi^2 = R dPhi/dR + (R/rho) dP/dR of the sampler, pooled")]
     if "internal_energy" in p:
         u_pred = np.full(nb, gas.cs**2 / (gas.gamma - 1))
@@ -243,9 +247,33 @@ def _q_row(model, name, centres, sig_R, sig_R_pred, density, tested, n_sigma):
                 "Q = sigma_R kappa / (3.36 G Sigma), Toomre 1964; model kappa")
 
 
+def _gas_column_cdf(gas, R, z_edges):
+    """Fraction of the hydrostatic gas column at R (kpc) below each |z| edge."""
+    zz = np.concatenate([[0.0], np.geomspace(1e-4 * gas.z_d, gas.extent, 4000)])
+    cum = integrate.cumulative_trapezoid(gas.density(np.full_like(zz, R), zz), zz, initial=0)
+    return np.interp(z_edges, zz, cum / cum[-1], right=1.0)
+
+
+def _gas_vertical_law(gas, R_in, lo, hi):
+    """(|z| edges, expected fractions) of the gas in annulus [lo, hi): edges at the
+    VERTICAL_FRACTIONS of the column at sqrt(lo hi); expected fractions averaged over the
+    particles' radii, since the layer flares across the annulus."""
+    zz = np.concatenate([[0.0], np.geomspace(1e-4 * gas.z_d, gas.extent, 4000)])
+    mid = _gas_column_cdf(gas, np.sqrt(lo * hi), zz)
+    edges = np.interp(VERTICAL_FRACTIONS, mid, zz)
+    edges[-1] = np.inf
+    nodes = np.linspace(lo, hi, 12)
+    table = np.array([np.diff(_gas_column_cdf(gas, r, edges)) for r in nodes])
+    if R_in.size == 0:
+        return edges, np.diff(VERTICAL_FRACTIONS)
+    frac = np.array([np.interp(R_in, nodes, table[:, k]).mean() for k in range(table.shape[1])])
+    return edges, frac
+
+
 def _vertical_row(disk, name, R, z, annuli, n_sigma):
     """|z| distribution in the annuli (edges ``annuli``, kpc) against the vertical law
-    (shape only: the expected counts are the annulus count times the law's fraction)."""
+    (shape only: the expected counts are the annulus count times the law's fraction);
+    for a gas disk the law is the hydrostatic column at the annulus."""
     from ..profiles.disk import SECH2
     f = np.asarray(VERTICAL_FRACTIONS)
     with np.errstate(divide="ignore"):
@@ -254,10 +282,13 @@ def _vertical_row(disk, name, R, z, annuli, n_sigma):
     az = np.abs(z)
     x, meas, pred, err, tested, labels = [], [], [], [], [], []
     for lo, hi in zip(annuli[:-1], annuli[1:]):
-        sel = az[(R >= lo) & (R < hi)]
+        inside = (R >= lo) & (R < hi)
+        sel = az[inside]
         n_a = sel.size
-        got = np.histogram(sel, bins=z_edges)[0] / max(n_a, 1)
         df = np.diff(f)
+        if disk.kind == "gas_disk":
+            z_edges, df = _gas_vertical_law(disk, R[inside], lo, hi)
+        got = np.histogram(sel, bins=z_edges)[0] / max(n_a, 1)
         x += list(0.5 * (z_edges[:-1] + np.minimum(z_edges[1:], 2 * z_edges[-2])))
         meas += list(got)
         pred += list(df)
