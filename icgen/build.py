@@ -114,6 +114,7 @@ class BuildResult:
     centre_offset: tuple
     timing: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
+    notes: list = field(default_factory=list)
 
     def report(self):
         """Summary table and the output line, as printed by ``icgen build``."""
@@ -129,7 +130,7 @@ class BuildResult:
                  "r_half: half-mass radius about the component's own centre of mass, "
                  "from the written particles",
                  f"centre of mass moved to the origin: offset {np.linalg.norm(x0):.3g} kpc, "
-                 f"{np.linalg.norm(v0):.3g} km/s",
+                 f"{np.linalg.norm(v0):.3g} km/s", *self.notes,
                  f"wrote {self.path} ({self.size_bytes / 1e6:.1f} MB, seed {self.seed}) "
                  f"in {sum(self.timing.values()):.1f} s"]
         return "\n".join(lines)
@@ -240,7 +241,12 @@ def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double
             messages.append(str(w.message))
         else:
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    return _result(writer, plans, path, spec, timing, messages)
+    result = _result(writer, plans, path, spec, timing, messages)
+    sol = getattr(model, "gas_solution", None)
+    if sol is not None:
+        result.notes.append(f"gas vertical equilibrium: converged in {sol.iterations} "
+                            f"iterations (last midplane density change {sol.changes[-1]:.1e})")
+    return result
 
 
 def _galaxy_model(spec):
