@@ -148,7 +148,7 @@ def cmd_curve(args):
         r_out = parse_quantity(args.rmax, "--rmax", u.kpc)
         if r_out <= 0:
             raise ModelError("--rmax", args.rmax, "must be positive")
-    summary = curve.summarize(model, radii, r_search=max(r_out, 1e-30) if args.rmax else None)
+    summary = curve.summarize(model, radii, r_search=r_out if args.rmax else None)
     if not args.quiet:
         shown = curve.rotation_curve(model, np.linspace(r_out / args.points, r_out, args.points))
         print(_curve_report(model, shown, summary))

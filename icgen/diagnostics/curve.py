@@ -62,8 +62,7 @@ def summarize(model, radii=None, r_search=None):
         # the whole galaxy: out to the largest truncation radius (NFW r200) or extent/10
         outer = [getattr(c, "r_t", c.extent / 10) for c in model.components.values()]
         r_search = max([default_radii(model)[-1]] + outer)
-    r_out = r_search
-    grid = np.geomspace(r_out * 1e-3, r_out, 400)
+    grid = np.geomspace(r_search * 1e-3, r_search, 400)
     v = model.circular_speed(grid)
     i = int(np.argmax(v))
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]

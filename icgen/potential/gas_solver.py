@@ -11,6 +11,7 @@ import numpy as np
 
 from .. import defaults
 from ..errors import ModelError
+from ..profiles.disk import log_cosh
 from ..profiles.gas import GasDisk
 from ..units import G
 from .total import GalaxyPotential
@@ -41,10 +42,6 @@ def _reference_height(q, gas):
     return z_half / np.arctanh(0.5)
 
 
-def _log_cosh(x):
-    return x + np.log1p(np.exp(-2 * x)) - np.log(2.0)
-
-
 def solve_gas(gas_specs, others):
     """GasDisk objects in equilibrium with ``others`` (component objects) and themselves.
 
@@ -65,7 +62,7 @@ def solve_gas(gas_specs, others):
         gas = GasDisk(spec, z_ref=z_ref)
         # start from the other components' field plus the gas's own Spitzer slab at each R
         z0 = spec.cs**2 / (np.pi * G * np.maximum(gas.surface_density(gas.R_nodes), 1e-300))
-        q_self = 2 * _log_cosh(gas.z_nodes[None, :] / z0[:, None])
+        q_self = 2 * log_cosh(gas.z_nodes[None, :] / z0[:, None])
         gas.set_vertical(q_self + (_q_on_nodes(fixed_fn, gas) if fixed_fn else 0.0))
         gases.append(gas)
     record = GasSolution()

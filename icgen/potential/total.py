@@ -44,8 +44,7 @@ class GalaxyPotential:
             l_c = 0 if spherical else getattr(c, "lmax", lmax)
             self.tables[c.name] = solve(dens, self.r_grid, l_c,
                                         4 if spherical else defaults.ANGULAR_NODES, G)
-        self.total_table = _sum(self.tables)
-        self._table_cache = {}
+        self._table_cache = {}   # sum of the tables of a set of components, made on first use
         # Closed-form spheres (and point masses, singular at r = 0) are always evaluated
         # exactly; the grid holds disks and numerically tabulated spheroids.
         self._analytic = [c.name for c in components if c.analytic_terms()]

@@ -24,6 +24,12 @@ def vertical_profile(z, z_d, code):
     return 0.5 / z_d * np.exp(-a)
 
 
+def log_cosh(x):
+    """ln cosh(x), finite for large |x|."""
+    a = np.abs(x)
+    return a + np.log1p(np.exp(-2 * a)) - np.log(2.0)
+
+
 def vertical_mass_fraction(z, z_d, code):
     """Fraction of the column within |z'| < z: tanh(z/z_d) (sech^2) or 1 - exp(-z/z_d)."""
     a = np.abs(z) / z_d
@@ -36,7 +42,7 @@ def vertical_h(z, z_d, code):
     s = np.sign(z)
     if code == SECH2:
         # ln cosh(a) written to stay finite for large a
-        h = 0.5 * z_d * (a + np.log1p(np.exp(-2 * a)) - np.log(2.0))
+        h = 0.5 * z_d * log_cosh(a)
         return h, 0.5 * np.tanh(z / z_d)
     e = np.exp(-a)
     return 0.5 * z_d * (e - 1 + a), 0.5 * s * (1 - e)
