@@ -9,69 +9,28 @@ x and y. Neither the kick (force along (x, y)/R and z) nor the drift exerts a to
 the z axis, so L_z = x v_y - y v_x is kept to round-off at every step: the discrete form
 of Noether's theorem for the rotational symmetry.
 
-Particles in a frozen potential do not interact, so each may have its own constant step
-without losing any of this: particle i takes m_i steps per interval, m_i a power of two,
-and all particles meet at the ends of the intervals (the block steps of Makino 1991,
-PASJ 43, 859, here with no coupling between blocks). Particles are kept sorted by m_i,
-finest first, so the particles due for a force at a sub-step are a prefix of the arrays.
+Particles in a frozen potential do not interact, so each has its own constant step
+(m_i steps per output interval) and its whole orbit over an interval is one loop of a
+numba kernel, with the force of the model evaluated inline (icgen.potential.field: the
+same numbers ``GalaxyPotential.evaluate`` gives). Particles go to worker threads in
+chunks, costliest first; the result does not depend on the chunks or the thread count.
+Where the inline force has no answer (off the grid of a model with a gas disk, or any
+point when no field is given) the particle stops half-way through its step, Python
+evaluates the force for all stopped particles at once, and the kernel resumes them.
 
-Layers: numba kernels over flat float64 arrays (parallel over particles, no checks), the
-:class:`Orbits` driver that calls them with a force function, and the public diagnostics
-(icgen.diagnostics.drift) that check the input. Units: kpc, km/s, (km/s)^2/kpc, time in
-kpc/(km/s) (= 0.97779 Gyr, icgen.units).
+Units: kpc, km/s, (km/s)^2/kpc, time in kpc/(km/s) (= 0.97779 Gyr, icgen.units).
 """
 import math
+from concurrent.futures import ThreadPoolExecutor
 
 import numba
 import numpy as np
 from numba import njit, prange
 
-__all__ = ["kick", "kick_drift", "cylindrical_radius", "specific_energy",
-           "angular_momentum_z", "pericentre", "substeps", "Orbits"]
+from .potential.field import NO_FIELD, force
 
-
-@njit(cache=True, parallel=True)
-def kick(x, y, vx, vy, vz, f_r, f_z, dt):
-    """v += F dt_i for every particle (in place), F = (F_R x/R, F_R y/R, F_z); dt (N,).
-
-    On the z axis (R = 0) F_R vanishes by symmetry, so the in-plane kick is zero.
-    """
-    for i in prange(x.shape[0]):
-        R = math.sqrt(x[i] * x[i] + y[i] * y[i])
-        if R > 0.0:
-            a = f_r[i] * dt[i] / R
-            vx[i] += a * x[i]
-            vy[i] += a * y[i]
-        vz[i] += f_z[i] * dt[i]
-
-
-@njit(cache=True, parallel=True)
-def kick_drift(x, y, z, vx, vy, vz, f_r, f_z, dt, kick_factor, R_out):
-    """A kick of ``kick_factor * dt_i`` then a drift of ``dt_i`` (in place); R_out gets
-    the new sqrt(x^2 + y^2) for the next force call. dt (N,), internal time units.
-
-    One parallel loop instead of three: each parallel region costs a thread barrier,
-    which dominates for the small particle sets of the finest steps.
-    """
-    for i in prange(x.shape[0]):
-        R = math.sqrt(x[i] * x[i] + y[i] * y[i])
-        h = kick_factor * dt[i]
-        if R > 0.0:
-            a = f_r[i] * h / R
-            vx[i] += a * x[i]
-            vy[i] += a * y[i]
-        vz[i] += f_z[i] * h
-        x[i] += vx[i] * dt[i]
-        y[i] += vy[i] * dt[i]
-        z[i] += vz[i] * dt[i]
-        R_out[i] = math.sqrt(x[i] * x[i] + y[i] * y[i])
-
-
-@njit(cache=True, parallel=True)
-def cylindrical_radius(x, y, out):
-    """out = sqrt(x^2 + y^2) (in place)."""
-    for i in prange(x.shape[0]):
-        out[i] = math.sqrt(x[i] * x[i] + y[i] * y[i])
+__all__ = ["leapfrog", "specific_energy", "angular_momentum_z", "pericentre", "substeps",
+           "Orbits"]
 
 
 @njit(cache=True, parallel=True)
@@ -130,11 +89,61 @@ def pericentre(r, v2, L2, lnr0, dlnr, phi_tab, out):
             out[i] = math.exp(lo)
 
 
-# Below this many particles a sub-step runs on one thread: a parallel region costs a
-# thread barrier (~10 us idle, milliseconds on a busy machine) and the force call opens
-# several; measured on 2 cores, one thread is faster for 1e3 particles even when idle and
-# up to 10x faster when other processes compete for the cores.
-SERIAL_BELOW = 8192
+# _nrt=False: no reference counting in this kernel (it allocates nothing and only reads
+# the caller's arrays); numba's own library code uses the option. Counting the arrays of
+# the field at every force call cost ~55 ns of the ~215 ns of a step (measured).
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def leapfrog(idx, x, y, z, vx, vy, vz, f_r, f_z, dt, steps, done, waiting, field):
+    """Advance particles ``idx`` until each has taken ``steps[i]`` steps of ``dt[i]``
+    (``done[i]`` counts them), all arrays (N,) float64 / int64 / bool, in place.
+
+    ``f_r, f_z`` hold the force at each particle's position. A step is a half kick, a
+    drift and a half kick; the force after the drift comes from ``force_at``. Where it has
+    none the particle stops with ``waiting[i]`` set; the caller stores the force at its
+    new position in ``f_r, f_z`` and calls again, which completes that step first.
+    """
+    p, c_force, codes, gms, scales, layers, rn, pt, dpt, d2pt = field
+    for j in range(idx.shape[0]):
+        i = idx[j]
+        h = 0.5 * dt[i]
+        xi, yi, zi, ui, vi, wi = x[i], y[i], z[i], vx[i], vy[i], vz[i]
+        fr, fz = f_r[i], f_z[i]
+        k = done[i]
+        R = math.sqrt(xi * xi + yi * yi)
+        if waiting[i]:                       # the closing half kick of the stopped step
+            waiting[i] = False
+            a = fr * h / R if R > 0.0 else 0.0
+            ui += a * xi
+            vi += a * yi
+            wi += fz * h
+            k += 1
+        while k < steps[i]:
+            a = fr * h / R if R > 0.0 else 0.0
+            ui += a * xi
+            vi += a * yi
+            wi += fz * h
+            xi += 2.0 * h * ui
+            yi += 2.0 * h * vi
+            zi += 2.0 * h * wi
+            R = math.sqrt(xi * xi + yi * yi)
+            found, fr, fz = force(R, zi, p, c_force, codes, gms, scales, layers, rn, pt, dpt,
+                                  d2pt)
+            if not found:
+                waiting[i] = True
+                break
+            a = fr * h / R if R > 0.0 else 0.0
+            ui += a * xi
+            vi += a * yi
+            wi += fz * h
+            k += 1
+        x[i], y[i], z[i], vx[i], vy[i], vz[i] = xi, yi, zi, ui, vi, wi
+        f_r[i], f_z[i] = fr, fz
+        done[i] = k
+
+
+#: Chunks of work per thread and call: enough to even out the threads' loads, few
+#: enough that handing them out costs nothing measurable.
+TASKS_PER_THREAD = 16
 
 
 def substeps(interval, timescale, accuracy, max_level):
@@ -165,17 +174,22 @@ class Orbits:
         ``evaluate(R, z) -> (Phi, F_R, F_z)`` on flat float64 arrays, e.g.
         ``GalaxyModel.potential.evaluate``; units (km/s)^2 and (km/s)^2/kpc.
     steps : (N,) int array or int
-        Steps each particle takes per call of :meth:`advance`; powers of two (or all
-        equal), so that every coarser step boundary is also a finer one.
+        Steps each particle takes per call of :meth:`advance`.
+    field : tuple, optional
+        ``icgen.potential.field.force_field(potential)`` of the same potential, for the
+        inline forces; None: every force comes from ``evaluate`` (slow; for tests and
+        potentials that have no field).
+    threads : int, optional
+        Worker threads (default: numba's thread count).
 
     Notes
     -----
-    The state is six contiguous 1-D arrays sorted by ``steps``, finest first: particle
-    ``k`` of these arrays is input particle ``order[k]``. Between calls of :meth:`advance`
+    The state is six contiguous 1-D arrays sorted by ``steps``, most first: particle ``k``
+    of these arrays is input particle ``order[k]``. Between calls of :meth:`advance`
     positions and velocities are synchronous (same time).
     """
 
-    def __init__(self, position, velocity, evaluate, steps=1):
+    def __init__(self, position, velocity, evaluate, steps=1, field=None, threads=None):
         pos = np.asarray(position, dtype=np.float64)
         vel = np.asarray(velocity, dtype=np.float64)
         steps = np.broadcast_to(np.asarray(steps, dtype=np.int64), pos.shape[:1])
@@ -184,55 +198,57 @@ class Orbits:
         self.x, self.y, self.z = (np.ascontiguousarray(pos[self.order, k]) for k in range(3))
         self.vx, self.vy, self.vz = (np.ascontiguousarray(vel[self.order, k]) for k in range(3))
         self.evaluate = evaluate
-        levels, first = np.unique(-self.steps, return_index=True)
-        # (steps, number of particles with at least that many steps), coarsest first
-        self._levels = [(int(-m), int(n)) for m, n in
-                        zip(levels[::-1], np.append(first[1:], self.steps.size)[::-1])]
-        self._R = np.empty_like(self.x)
-        cylindrical_radius(self.x, self.y, self._R)
-        self.force_calls = 0
-        self.force_evaluations = 0
+        self.field = NO_FIELD if field is None else field
+        self.threads = threads or numba.get_num_threads()
         n = self.x.size
-        self._phi, self._f_r, self._f_z = np.empty(n), np.empty(n), np.empty(n)
-        self._forces(n)
+        self._done = np.zeros(n, np.int64)
+        self._waiting = np.zeros(n, np.bool_)
+        self.force_calls = 0          # calls of ``evaluate`` during the orbits
+        self.steps_taken = 0
+        self._phi, self._f_r, self._f_z = self._evaluate(np.arange(n))
 
     def __len__(self):
         return self.x.shape[0]
 
-    def _forces(self, n):
-        """Forces and potential of the first n particles (the ones due)."""
-        self.force_calls += 1
-        self.force_evaluations += n
-        phi, f_r, f_z = self.evaluate(self._R[:n], self.z[:n])
-        self._phi[:n], self._f_r[:n], self._f_z[:n] = phi, f_r, f_z
+    def _evaluate(self, idx):
+        x, y = self.x[idx], self.y[idx]
+        R = np.sqrt(x * x + y * y)            # as the kernel computes it, for equal bits
+        return (np.ascontiguousarray(a) for a in self.evaluate(R, self.z[idx]))
 
-    def _due(self, j, m_max):
-        """Number of particles (a prefix) with a step boundary at sub-step j."""
-        for m, n in self._levels:          # coarsest first: its particles and all finer
-            if j % (m_max // m) == 0:
-                return n
-        return 0
+    def _run(self, idx, dt, pool):
+        """Run the kernel on particles ``idx`` in about TASKS_PER_THREAD x threads chunks
+        of equal work (steps left), in order: the particles are sorted costliest first, so
+        the thread that frees up next takes the next costliest chunk."""
+        args = (self.x, self.y, self.z, self.vx, self.vy, self.vz, self._f_r, self._f_z,
+                dt, self.steps, self._done, self._waiting, self.field)
+        if pool is None:
+            leapfrog(idx, *args)
+            return
+        work = np.cumsum(self.steps[idx] - self._done[idx])
+        tasks = TASKS_PER_THREAD * self.threads
+        cuts = np.searchsorted(work, work[-1] * np.arange(1, tasks) / tasks, side="right")
+        chunks = [c for c in np.split(idx, np.unique(cuts)) if c.size]
+        for _ in pool.map(lambda c: leapfrog(c, *args), chunks):
+            pass
 
     def advance(self, interval):
-        """Advance every particle by ``interval`` (internal time units) in its own steps.
-
-        Each particle's closing half kick and next opening half kick are merged into one
-        full kick, so a particle costs one force evaluation per step.
-        """
+        """Advance every particle by ``interval`` (internal time units) in its own steps."""
         dt = interval / self.steps
-        m_max = int(self.steps[0]) if self.steps.size else 0
-        threads = numba.get_num_threads()
+        self._done[:] = 0
+        idx = np.arange(self.x.size)
+        pool = ThreadPoolExecutor(self.threads) if self.threads > 1 else None
         try:
-            for j in range(m_max):
-                n = self._due(j, m_max)
-                numba.set_num_threads(1 if n < SERIAL_BELOW else threads)
-                kick_drift(self.x[:n], self.y[:n], self.z[:n], self.vx[:n], self.vy[:n],
-                           self.vz[:n], self._f_r[:n], self._f_z[:n], dt[:n],
-                           0.5 if j == 0 else 1.0, self._R[:n])
-                self._forces(n)
+            while idx.size:
+                self._run(idx, dt, pool)
+                idx = np.flatnonzero(self._waiting)
+                if idx.size:
+                    _, self._f_r[idx], self._f_z[idx] = self._evaluate(idx)
+                    self.force_calls += 1
         finally:
-            numba.set_num_threads(threads)
-        kick(self.x, self.y, self.vx, self.vy, self.vz, self._f_r, self._f_z, 0.5 * dt)
+            if pool is not None:
+                pool.shutdown()
+        self.steps_taken += int(self.steps.sum())
+        self._phi = next(iter(self._evaluate(np.arange(self.x.size))))
 
     def energy(self):
         """Specific energy E = v^2/2 + Phi per particle, (km/s)^2, sorted order."""

@@ -94,13 +94,77 @@ def test_lz_conserved_to_round_off_in_axisymmetric_model(small_model):
     model, parts = small_model
     pos = np.concatenate([p["position"] for p in parts.values()])[::10]
     vel = np.concatenate([p["velocity"] for p in parts.values()])[::10]
-    orb = Orbits(pos, vel, model.potential.evaluate, 8)
+    orb = Orbits(pos, vel, model.potential.evaluate, 8, model.potential.force_field())
     lz0 = orb.lz()
     L = np.linalg.norm(np.cross(pos, vel), axis=1)[orb.order]
     for _ in range(20):
         orb.advance(0.01)
     # 160 steps of relative round-off ~1e-16 each (plus |L_z| << |L| cancellations)
     assert np.max(np.abs(orb.lz() - lz0) / L) < 1e-11
+
+
+def _advanced(pos, vel, potential, m, field, threads, n_int=5, interval=0.004):
+    orb = Orbits(pos, vel, potential.evaluate, m, field, threads=threads)
+    for _ in range(n_int):
+        orb.advance(interval)
+    return orb.position, orb.velocity, orb
+
+
+def test_inline_forces_give_the_same_orbits_bit_for_bit(small_model):
+    # The kernel's inline force (potential/field.py) is the sum evaluate() makes, in the
+    # same order: orbits with it equal, to the last bit, the ones whose every force comes
+    # from evaluate() through Python; and neither depends on the thread count.
+    model, parts = small_model
+    pos = np.concatenate([p["position"] for p in parts.values()])[::25]
+    vel = np.concatenate([p["velocity"] for p in parts.values()])[::25]
+    m = np.array([1, 2, 4, 8])[np.arange(len(pos)) % 4]
+    P = model.potential
+    x1, v1, _ = _advanced(pos, vel, P, m, P.force_field(), 1)
+    x2, v2, _ = _advanced(pos, vel, P, m, P.force_field(), 2)
+    x3, v3, orb = _advanced(pos, vel, P, m, None, 2)
+    assert orb.force_calls == 5 * 8          # the Python path: one call per sub-step
+    for a, b in ((x1, x2), (v1, v2), (x1, x3), (v1, v3)):
+        assert np.array_equal(a, b)
+
+
+def test_gas_model_falls_back_to_evaluate_off_the_grid():
+    # Gas layers have no numba form: off the grid (here halo particles beyond the
+    # halo's cut-off radius) the kernel stops and Python supplies the force; the orbits
+    # must still equal those of the all-Python path.
+    model = model_from_components({
+        "halo": {"kind": "halo", "profile": "nfw", "mass": "1e11 Msun",
+                 "concentration": 10, "particles": 10},
+        "gas": {"kind": "gas_disk", "mass": "5e9 Msun", "scale_length": "3 kpc",
+                "temperature": "1e4 K", "particles": 10}})
+    P = model.potential
+    edge = P.grid.s * np.sinh(P.grid.x_max - 12 * P.grid.h)
+    rng = np.random.default_rng(9)
+    r = np.concatenate([rng.uniform(1, 30, 30), rng.uniform(1.05, 1.5, 10) * edge])
+    nhat = rng.normal(size=(r.size, 3))
+    nhat /= np.linalg.norm(nhat, axis=1)[:, None]
+    pos = r[:, None] * nhat
+    vc = np.sqrt(-r * P.evaluate(r, 0 * r)[1])
+    vel = 0.7 * vc[:, None] * np.cross(nhat, [0.0, 0.0, 1.0])
+    x1, v1, orb = _advanced(pos, vel, P, 4, P.force_field(), 2, interval=0.05)
+    assert orb.force_calls > 0               # the fallback was used
+    x2, v2, _ = _advanced(pos, vel, P, 4, None, 2, interval=0.05)
+    assert np.array_equal(x1, x2) and np.array_equal(v1, v2)
+
+
+def test_force_field_equals_evaluate(default_model):
+    # Independent check of the packing: the point-by-point force equals evaluate()'s
+    # array path at random points from the centre (inside the exact core) to beyond
+    # the grid (exact multipole far field).
+    from icgen.potential.field import force_at
+    P = default_model.potential
+    field = P.force_field()
+    rng = np.random.default_rng(3)
+    R = np.concatenate([np.abs(rng.standard_cauchy(3000)) * 5, rng.uniform(0, 0.05, 500)])
+    z = np.concatenate([rng.standard_cauchy(3000), rng.normal(0, 0.02, 500)])
+    _, f_r, f_z = P.evaluate(R, z)
+    got = np.array([force_at(a, b, field) for a, b in zip(R, z)])
+    assert got[:, 0].all()
+    assert np.array_equal(got[:, 1], f_r) and np.array_equal(got[:, 2], f_z)
 
 
 def _max_energy_error(pos, vel, dt, n_out, per_out):

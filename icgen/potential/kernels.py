@@ -11,29 +11,32 @@ from numba import njit, prange
 POINT_MASS, HERNQUIST, PLUMMER = 0, 1, 2
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def sphere_point(r, code, gm, a):
+    """(Phi, dPhi/dr) of a closed-form sphere at radius r: point mass (-GM/r), Hernquist
+    1990 eq. 5 (-GM/(r+a)), Plummer 1911 (-GM/sqrt(r^2+a^2))."""
+    if code == POINT_MASS:
+        return (-gm / r, gm / (r * r)) if r > 0 else (-np.inf, 0.0)
+    if code == HERNQUIST:
+        return -gm / (r + a), gm / ((r + a) * (r + a))
+    s2 = r * r + a * a
+    return -gm / math.sqrt(s2), gm * r / (s2 * math.sqrt(s2))
+
+
 @njit(cache=True, parallel=True, error_model="numpy")
 def add_spherical(R, z, code, gm, a, phi, f_r, f_z):
-    """Closed-form spheres: point mass (-GM/r), Hernquist 1990 eq. 5 (-GM/(r+a)),
-    Plummer 1911 (-GM/sqrt(r^2+a^2)); radial force -dPhi/dr projected on (R, z)."""
+    """Add a closed-form sphere (:func:`sphere_point`); radial force -dPhi/dr projected
+    on (R, z)."""
     for i in prange(R.shape[0]):
         r = math.sqrt(R[i] * R[i] + z[i] * z[i])
-        if code == POINT_MASS:
-            p = -gm / r if r > 0 else -np.inf
-            d = gm / (r * r) if r > 0 else 0.0
-        elif code == HERNQUIST:
-            p = -gm / (r + a)
-            d = gm / ((r + a) * (r + a))
-        else:
-            s2 = r * r + a * a
-            p = -gm / math.sqrt(s2)
-            d = gm * r / (s2 * math.sqrt(s2))
+        p, d = sphere_point(r, code, gm, a)
         phi[i] += p
         if r > 0:
             f_r[i] -= d * R[i] / r
             f_z[i] -= d * z[i] / r
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _sigma_shape(r, r_d, r_t, w_t):
     """exp(-r/R_d) T(r) and its derivative, T = erfc((r-R_t)/w)/2 (R_t < 0: no taper)."""
     e = math.exp(-r / r_d)
@@ -45,7 +48,7 @@ def _sigma_shape(r, r_d, r_t, w_t):
     return e * t, -e / r_d * t + e * t1
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _vertical_h(z, z_d, code):
     """H and H' of Dehnen & Binney (1998): sech^2 (code 0) or exponential (code 1)."""
     a = abs(z) / z_d
@@ -55,20 +58,30 @@ def _vertical_h(z, z_d, code):
     return 0.5 * z_d * (e - 1 + a), 0.5 * math.copysign(1.0, z) * (1 - e)
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def thin_layer_point(R, z, four_pi_g_sigma0, r_d, r_t, w_t, z_d, code):
+    """(Phi, F_R, F_z) of Phi_1 = 4 pi G Sigma(r) H(z), r = sqrt(R^2+z^2) (Dehnen & Binney
+    1998, eq. 19), at one point."""
+    r = math.sqrt(R * R + z * z)
+    s, s1 = _sigma_shape(r, r_d, r_t, w_t)
+    h, h1 = _vertical_h(z, z_d, code)
+    if r == 0:
+        return four_pi_g_sigma0 * s * h, 0.0, -four_pi_g_sigma0 * s * h1
+    return (four_pi_g_sigma0 * s * h, -four_pi_g_sigma0 * s1 * R / r * h,
+            -four_pi_g_sigma0 * (s1 * z / r * h + s * h1))
+
+
 @njit(cache=True, parallel=True, error_model="numpy")
 def add_thin_layer(R, z, four_pi_g_sigma0, r_d, r_t, w_t, z_d, code, phi, f_r, f_z):
-    """Phi_1 = 4 pi G Sigma(r) H(z), r = sqrt(R^2+z^2) (Dehnen & Binney 1998, eq. 19)."""
+    """Add the Dehnen & Binney thin layer (:func:`thin_layer_point`) at every point."""
     for i in prange(R.shape[0]):
-        r = math.sqrt(R[i] * R[i] + z[i] * z[i])
-        s, s1 = _sigma_shape(r, r_d, r_t, w_t)
-        h, h1 = _vertical_h(z[i], z_d, code)
-        phi[i] += four_pi_g_sigma0 * s * h
-        if r > 0:
-            f_r[i] -= four_pi_g_sigma0 * s1 * R[i] / r * h
-            f_z[i] -= four_pi_g_sigma0 * (s1 * z[i] / r * h + s * h1)
+        p, a, b = thin_layer_point(R[i], z[i], four_pi_g_sigma0, r_d, r_t, w_t, z_d, code)
+        phi[i] += p
+        f_r[i] += a
+        f_z[i] += b
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _radial(r, k, j, b0, b1, b2, b3, h, rnodes, phi_t, dphi_t, d2phi_t):
     """Phi_l(r) and dPhi_l/dr for harmonic index k (l = 2k). Inside the grid: cubic
     Hermite in ln r with basis weights b0..b3 (shared by all l); j = -1 inside the first
@@ -93,10 +106,11 @@ def _radial(r, k, j, b0, b1, b2, b3, h, rnodes, phi_t, dphi_t, d2phi_t):
     return p, d
 
 
-@njit(cache=True, error_model="numpy")
-def _locate(r, lnr0, h, n):
+@njit(cache=True, error_model="numpy", inline="always")
+def _locate(r, lnr0, h, rnodes):
     """Interval index j and fraction t of r on the ln r grid (-1 / n-1 outside)."""
-    if r <= math.exp(lnr0):
+    n = rnodes.shape[0]
+    if r <= rnodes[0]:
         return -1, 0.0
     u = (math.log(r) - lnr0) / h
     if u >= n - 1:
@@ -105,39 +119,51 @@ def _locate(r, lnr0, h, n):
     return j, u - j
 
 
-@njit(cache=True, parallel=True, error_model="numpy")
-def add_multipole(R, z, lnr0, h, rnodes, phi_t, dphi_t, d2phi_t, phi, f_r, f_z):
-    """Sum_l Phi_l(r) P_l(mu) over even l, mu = z/r, and its gradient. Tables are
-    (n_radii, n_harmonics), so all harmonics of one radius are adjacent in memory.
+@njit(cache=True, error_model="numpy", inline="always")
+def _hermite(t):
+    """Cubic Hermite basis h00, h10, h01, h11 at fraction t."""
+    t2 = t * t
+    t3 = t2 * t
+    return 2 * t3 - 3 * t2 + 1, t3 - 2 * t2 + t, 3 * t2 - 2 * t3, t3 - t2
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def multipole_point(R, z, lnr0, h, rnodes, phi_t, dphi_t, d2phi_t):
+    """(Phi, F_R, F_z) of sum_l Phi_l(r) P_l(mu) over even l, mu = z/r, at one point.
+    Tables are (n_radii, n_harmonics), so all harmonics of one radius are adjacent.
 
     Legendre values by the Bonnet recurrence, derivatives by P'_{n+1} = P'_{n-1} + (2n+1) P_n
     (no division by 1 - mu^2, so points on the axis are safe)."""
-    n_harm = phi_t.shape[1]
-    lmax = 2 * (n_harm - 1)
+    lmax = 2 * (phi_t.shape[1] - 1)
+    r = math.sqrt(R * R + z * z)
+    mu = z / r if r > 0 else 0.0
+    p_prev, p_cur = 0.0, 1.0          # P_{-1}, P_0
+    dp_prev, dp_cur = 0.0, 0.0        # P'_{-1}, P'_0
+    sp, sdr, sdmu = 0.0, 0.0, 0.0
+    j, t = _locate(r, lnr0, h, rnodes)
+    b0, b1, b2, b3 = _hermite(t)
+    for l in range(lmax + 1):
+        if l % 2 == 0:
+            pl, dl = _radial(r, l // 2, j, b0, b1, b2, b3, h, rnodes, phi_t, dphi_t, d2phi_t)
+            sp += pl * p_cur
+            sdr += dl * p_cur
+            sdmu += pl * dp_cur
+        p_next = ((2 * l + 1) * mu * p_cur - l * p_prev) / (l + 1)
+        dp_next = dp_prev + (2 * l + 1) * p_cur
+        p_prev, p_cur = p_cur, p_next
+        dp_prev, dp_cur = dp_cur, dp_next
+    if r == 0:
+        return sp, 0.0, 0.0
+    # chain rule: dr/dR = R/r, dr/dz = z/r, dmu/dR = -z R/r^3, dmu/dz = R^2/r^3
+    r3 = r * r * r
+    return sp, -(sdr * R / r - sdmu * z * R / r3), -(sdr * z / r + sdmu * R * R / r3)
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def add_multipole(R, z, lnr0, h, rnodes, phi_t, dphi_t, d2phi_t, phi, f_r, f_z):
+    """Add the multipole expansion (:func:`multipole_point`) at every point."""
     for i in prange(R.shape[0]):
-        r = math.sqrt(R[i] * R[i] + z[i] * z[i])
-        mu = z[i] / r if r > 0 else 0.0
-        p_prev, p_cur = 0.0, 1.0          # P_{-1}, P_0
-        dp_prev, dp_cur = 0.0, 0.0        # P'_{-1}, P'_0
-        sp, sdr, sdmu = 0.0, 0.0, 0.0
-        j, t = _locate(r, lnr0, h, rnodes.shape[0])
-        t2 = t * t
-        t3 = t2 * t   # cubic Hermite basis h00, h10, h01, h11
-        b0, b1, b2, b3 = 2 * t3 - 3 * t2 + 1, t3 - 2 * t2 + t, 3 * t2 - 2 * t3, t3 - t2
-        for l in range(lmax + 1):
-            if l % 2 == 0:
-                pl, dl = _radial(r, l // 2, j, b0, b1, b2, b3, h, rnodes,
-                                 phi_t, dphi_t, d2phi_t)
-                sp += pl * p_cur
-                sdr += dl * p_cur
-                sdmu += pl * dp_cur
-            p_next = ((2 * l + 1) * mu * p_cur - l * p_prev) / (l + 1)
-            dp_next = dp_prev + (2 * l + 1) * p_cur
-            p_prev, p_cur = p_cur, p_next
-            dp_prev, dp_cur = dp_cur, dp_next
-        phi[i] += sp
-        if r > 0:
-            # chain rule: dr/dR = R/r, dr/dz = z/r, dmu/dR = -z R/r^3, dmu/dz = R^2/r^3
-            r3 = r * r * r
-            f_r[i] -= sdr * R[i] / r - sdmu * z[i] * R[i] / r3
-            f_z[i] -= sdr * z[i] / r + sdmu * R[i] * R[i] / r3
+        p, a, b = multipole_point(R[i], z[i], lnr0, h, rnodes, phi_t, dphi_t, d2phi_t)
+        phi[i] += p
+        f_r[i] += a
+        f_z[i] += b

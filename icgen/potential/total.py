@@ -11,6 +11,7 @@ from scipy.interpolate import CubicSpline
 from .. import defaults
 from ..units import G
 from . import kernels
+from .field import force_field
 from .grid import PotentialGrid
 from .multipole import radial_grid, solve
 
@@ -84,10 +85,25 @@ class GalaxyPotential:
             far = self._exact(Rf[outside], zf[outside], self._gridded_names)
             for arr, val in zip((phi, f_r, f_z), far):
                 arr[outside] = val
-        for name in self._analytic:
+        self._add_spheres(Rf, zf, self._analytic, phi, f_r, f_z)
+        return phi, f_r, f_z
+
+    def _add_spheres(self, Rf, zf, names, phi, f_r, f_z):
+        """Add closed-form spheres and the summed tables of the named components."""
+        for name in names:
             for code, mass, a in self.components[name].analytic_terms():
                 kernels.add_spherical(Rf, zf, code, G * mass, a, phi, f_r, f_z)
-        return phi, f_r, f_z
+        table = self._table(names)
+        if table is not None:
+            kernels.add_multipole(Rf, zf, table.lnr0, table.h, table.r, *table.kernel_arrays(),
+                                  phi, f_r, f_z)
+
+    def _table(self, names):
+        """Sum of the multipole tables of the named components (None if they have none)."""
+        key = tuple(sorted(n for n in names if n in self.tables))
+        if key not in self._table_cache:
+            self._table_cache[key] = _sum({n: self.tables[n] for n in key})
+        return self._table_cache[key]
 
     def _exact(self, Rf, zf, names):
         """Sum of the named components' exact pieces at flat arrays."""
@@ -95,22 +111,20 @@ class GalaxyPotential:
         phi, f_r, f_z = np.zeros_like(Rf), np.zeros_like(Rf), np.zeros_like(Rf)
         for name in names:
             c = self.components[name]
-            for code, mass, a in c.analytic_terms():
-                kernels.add_spherical(Rf, zf, code, G * mass, a, phi, f_r, f_z)
             if c.kind == "gas_disk":
                 c.add_layer(Rf, zf, G, phi, f_r, f_z)
             elif c.kind == "disk":
                 s0, r_d, r_t, w_t, z_d, code = c.thin_layer_params()
                 kernels.add_thin_layer(Rf, zf, 4 * np.pi * G * s0, r_d, r_t, w_t, z_d,
                                        int(code), phi, f_r, f_z)
-        key = tuple(sorted(n for n in names if n in self.tables))
-        if key not in self._table_cache:
-            self._table_cache[key] = _sum({n: self.tables[n] for n in key})
-        table = self._table_cache[key]
-        if table is not None:
-            kernels.add_multipole(Rf, zf, table.lnr0, table.h, table.r, *table.kernel_arrays(),
-                                  phi, f_r, f_z)
+        self._add_spheres(Rf, zf, names, phi, f_r, f_z)
         return phi, f_r, f_z
+
+    def force_field(self):
+        """The total force as numba-ready arrays (potential/field.py), made once."""
+        if not hasattr(self, "_field"):
+            self._field = force_field(self)
+        return self._field
 
     def potential(self, R, z, component=None):
         """Phi (km/s)^2 at (R, z) kpc."""
