@@ -89,6 +89,14 @@ def pericentre(r, v2, L2, lnr0, dlnr, phi_tab, out):
             out[i] = math.exp(lo)
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def _kick(u, v, w, x, y, R, f_r, f_z, dt):
+    """Velocity after a kick of dt by the force (F_R x/R, F_R y/R, F_z); F_R = 0 on the
+    axis by symmetry."""
+    a = f_r * dt / R if R > 0.0 else 0.0
+    return u + a * x, v + a * y, w + f_z * dt
+
+
 # _nrt=False: no reference counting in this kernel (it allocates nothing and only reads
 # the caller's arrays); numba's own library code uses the option. Counting the arrays of
 # the field at every force call cost ~55 ns of the ~215 ns of a step (measured).
@@ -98,9 +106,10 @@ def leapfrog(idx, x, y, z, vx, vy, vz, f_r, f_z, dt, steps, done, waiting, field
     (``done[i]`` counts them), all arrays (N,) float64 / int64 / bool, in place.
 
     ``f_r, f_z`` hold the force at each particle's position. A step is a half kick, a
-    drift and a half kick; the force after the drift comes from ``force_at``. Where it has
-    none the particle stops with ``waiting[i]`` set; the caller stores the force at its
-    new position in ``f_r, f_z`` and calls again, which completes that step first.
+    drift and a half kick; the force after the drift comes from ``potential.field.force``.
+    Where that has none the particle stops with ``waiting[i]`` set; the caller stores the
+    force at its new position in ``f_r, f_z`` and calls again, which first completes the
+    stopped step.
     """
     p, c_force, codes, gms, scales, layers, rn, pt, dpt, d2pt = field
     for j in range(idx.shape[0]):
@@ -112,16 +121,10 @@ def leapfrog(idx, x, y, z, vx, vy, vz, f_r, f_z, dt, steps, done, waiting, field
         R = math.sqrt(xi * xi + yi * yi)
         if waiting[i]:                       # the closing half kick of the stopped step
             waiting[i] = False
-            a = fr * h / R if R > 0.0 else 0.0
-            ui += a * xi
-            vi += a * yi
-            wi += fz * h
+            ui, vi, wi = _kick(ui, vi, wi, xi, yi, R, fr, fz, h)
             k += 1
         while k < steps[i]:
-            a = fr * h / R if R > 0.0 else 0.0
-            ui += a * xi
-            vi += a * yi
-            wi += fz * h
+            ui, vi, wi = _kick(ui, vi, wi, xi, yi, R, fr, fz, h)
             xi += 2.0 * h * ui
             yi += 2.0 * h * vi
             zi += 2.0 * h * wi
@@ -131,10 +134,7 @@ def leapfrog(idx, x, y, z, vx, vy, vz, f_r, f_z, dt, steps, done, waiting, field
             if not found:
                 waiting[i] = True
                 break
-            a = fr * h / R if R > 0.0 else 0.0
-            ui += a * xi
-            vi += a * yi
-            wi += fz * h
+            ui, vi, wi = _kick(ui, vi, wi, xi, yi, R, fr, fz, h)
             k += 1
         x[i], y[i], z[i], vx[i], vy[i], vz[i] = xi, yi, zi, ui, vi, wi
         f_r[i], f_z[i] = fr, fz
