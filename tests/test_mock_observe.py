@@ -153,8 +153,8 @@ def test_write_makes_the_files(dwarf, cold, tmp_path):
 def test_warm_disk_shows_asymmetric_drift(dwarf):
     # a disk sampled by icgen.sampling (Jeans moments, Toomre Q = 1.5) lags v_c: the
     # truth table shows the asymmetric drift (Binney & Tremaine 2008, eq. 4.228) and the
-    # observed curve follows the tracer's mean v_phi, not v_c. Lines broadened by the
-    # model's sigma_z (the default).
+    # observed curve follows the tracer's mean v_phi, not v_c. Default lines: the
+    # particles' own velocity spread.
     import warnings
     from icgen.sampling import sample
     with warnings.catch_warnings():     # heavy halo particles, a hot inner disk: expected
@@ -173,6 +173,30 @@ def test_warm_disk_shows_asymmetric_drift(dwarf):
     off_vphi = np.abs(s["rings_minus_vphi"].value[sel]).mean()
     off_vcirc = np.abs(s["rings_minus_vcirc"].value[sel]).mean()
     assert off_vphi < 0.5 * off_vcirc
+
+
+def test_stellar_lines_keep_the_particles_velocity_spread(dwarf):
+    # star particles sample the velocity distribution themselves, so by default they get
+    # no line width of their own: the cube's total spectrum has the variance of the
+    # particles' line-of-sight velocities plus the channel's (a uniform channel of
+    # width w adds w^2/12, Sheppard's correction). Independent particles here: a
+    # non-rotating disk with Gaussian vertical motions, seen at 30 deg.
+    rng = np.random.default_rng(12)
+    n = 50_000
+    cold = cold_disk(dwarf, n, 3)["disk"]
+    vel = np.zeros((n, 3))
+    vel[:, 2] = rng.normal(0.0, 20.0, n)
+    parts = {"disk": {**cold, "velocity": vel}}
+    obs = observe(parts, Geometry(30.0, 35.0, DISTANCE, systemic=700.0),
+                  Instrument(beam=8.0, pixel=8.0 / 3, channel=5.0), tracer="disk", model=dwarf)
+    spec = obs.cube_data.sum(axis=(0, 1))
+    v = obs.grid.channel_velocities()
+    mean = np.sum(spec * v) / spec.sum()
+    std = np.sqrt(np.sum(spec * (v - mean) ** 2) / spec.sum())
+    expect = np.sqrt(np.var(vel[:, 2] * np.cos(np.radians(30.0))) + 5.0**2 / 12)
+    # the standard deviation of a sample std is ~ std/sqrt(2n) = 0.3 %; 2 % allows
+    # the finite beam; an extra sigma_z-wide line would give sqrt(2) x
+    assert std == pytest.approx(expect, rel=0.02)
 
 
 def test_edge_on_disk_gives_a_major_axis_curve_only(dwarf, cold):
@@ -213,7 +237,7 @@ def test_gas_tracer_lines_have_the_sound_speed():
         parts = sample(model)
     gas, kind, _ = tracer_particles(parts, "gas", model)
     assert kind == "gas_disk"
-    widths = line_widths(gas, kind, model, "gas", Instrument(), None)
+    widths = line_widths(gas, kind, model, "gas", Instrument())
     np.testing.assert_allclose(widths, model.components["gas"].cs)
     obs = observe(parts, Geometry(55.0, 100.0, 15.0, systemic=1000.0),
                   Instrument(beam=15.0, pixel=5.0, channel=4.0), tracer="gas", model=model)

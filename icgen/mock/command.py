@@ -33,8 +33,8 @@ def add_arguments(p):
     p.add_argument("--field", help="side of the square field, e.g. '10 arcmin' "
                                    "(default: the disk's extent plus 2 beams)")
     p.add_argument("--line-width", help="Gaussian sigma of every particle's line, e.g. "
-                                        "'8 km/s' (default: sigma_z of the model for stars, "
-                                        "the sound speed for gas)")
+                                        "'8 km/s' (default: 0 for stars, whose particles carry "
+                                        "their own velocity spread; the sound speed for gas)")
     p.add_argument("--fit-geometry", default="fixed",
                    help=f"tilted-ring geometry: {' | '.join(GEOMETRY_MODES)} (default fixed)")
     p.add_argument("--free", default="pa,inc",

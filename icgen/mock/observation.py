@@ -202,21 +202,21 @@ def _check_tracer(tracer, kinds):
                          f"disk component (kind {' or '.join(TRACER_KINDS)})")
 
 
-def line_widths(particles, kind, model, tracer, instrument, moments):
+def line_widths(particles, kind, model, tracer, instrument):
     """Gaussian sigma (km/s) of each particle's line.
 
-    ``instrument.line_width`` when set; otherwise the tracer's own: the model's
-    sigma_z(R, z) at the particle for a stellar disk (Jeans moments), the isothermal
-    sound speed for a gas disk.
+    ``instrument.line_width`` when set; otherwise what the particle's own velocity does not
+    carry: the isothermal sound speed for a gas disk (gas particles move with the mean
+    flow; the thermal motions are in their internal energy) and 0 for stars, whose
+    particles already sample the velocity distribution (a width of sigma_z on top would
+    widen it by sqrt(2) face-on).
     """
     n = particles["mass"].size
     if instrument.line_width is not None:
         return np.full(n, instrument.line_width)
     if kind == "gas_disk":
         return np.full(n, float(model.components[tracer].cs))
-    R, z, *_ = cylindrical(particles["position"], particles["velocity"])
-    R = np.maximum(R, 1e-6 * model.components[tracer].R_d)
-    return np.sqrt(moments.moments(R, z)["sigma_z2"])
+    return np.zeros(n)
 
 
 def observe(source, geometry, instrument=None, tracer="disk", model=None, seed=0,
@@ -249,7 +249,7 @@ def observe(source, geometry, instrument=None, tracer="disk", model=None, seed=0
         raise ModelError("geometry", type(geometry).__name__, "must be a Geometry and an Instrument")
     particles, kind, model = tracer_particles(source, tracer, model)
     moments = stellar_moments(model, tracer) if kind == "disk" else None
-    sigma = line_widths(particles, kind, model, tracer, instrument, moments)
+    sigma = line_widths(particles, kind, model, tracer, instrument)
     east, north, v_los = project_particles(particles["position"], particles["velocity"], geometry)
     scale = geometry.kpc_per_arcsec
     east, north = east / scale, north / scale

@@ -136,7 +136,8 @@ class Instrument:
         arcsec, side of the square field; None: the disk's extent plus margins.
     line_width : float or None
         km/s, one Gaussian sigma given to every particle's line; None: the tracer's own
-        (the model's sigma_z(R, z) for stars, the sound speed for gas).
+        (0 for stars, whose particles sample their velocity spread; the sound speed for
+        gas).
     """
 
     beam: float = 12.0
