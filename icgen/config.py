@@ -7,7 +7,8 @@ validated just as one read from a file; the loader adds what only a file can get
 :class:`~icgen.errors.ModelError` with a one-line message naming the model-file key.
 
 Defaults not spelled out in the file: ``model.name`` is "unnamed model", ``model.seed`` is 1,
-``model.cosmology`` is "Planck18" at ``model.redshift`` 0.
+``model.cosmology`` is "Planck18" at ``model.redshift`` 0, ``model.quiet_start`` and
+``model.mirror`` are false.
 """
 
 import dataclasses
@@ -45,7 +46,8 @@ VELOCITY_METHODS = ("eddington", "jeans")
 KINDS = ("halo", "bulge", "disk", "gas_disk", "point_mass")
 
 # How each key is read and written: (label, astropy unit) for dimensional keys,
-# "number" for dimensionless floats, "count" for integers, "text" for strings.
+# "number" for dimensionless floats, "count" for integers, "text" for strings, "flag" for
+# true/false.
 _LENGTH = ("kpc", u.kpc)
 _MASS = ("Msun", u.Msun)
 _DENSITY = ("Msun/kpc3", u.Msun / u.kpc**3)
@@ -59,14 +61,14 @@ _VALUE_KINDS = {
     "adiabatic_index": "number",
     "toomre_q": "number", "toomre_q_min": "number", "sigma_ratio": "number",
     "concentration": "number", "spin": "number", "redshift": "number",
-    "particles": "count", "seed": "count",
+    "particles": "count", "seed": "count", "quiet_start": "flag", "mirror": "flag",
     "name": "text", "kind": "text", "profile": "text", "vertical": "text",
     "velocities": "text", "cosmology": "text",
     "length_unit": "text", "velocity_unit": "text", "mass_unit": "text",
 }  # fmt: skip
 
 _TOP_KEYS = ("model", "output", "components")
-_MODEL_KEYS = ("name", "seed", "cosmology", "redshift", "particle_mass")
+_MODEL_KEYS = ("name", "seed", "cosmology", "redshift", "particle_mass", "quiet_start", "mirror")
 _OUTPUT_KEYS = ("length_unit", "velocity_unit", "mass_unit")
 _DISK_KEYS = ("kind", "profile", "mass", "scale_length", "scale_height", "vertical",
               "taper_radius", "taper_width", "toomre_q", "toomre_q_radius", "toomre_q_min",
@@ -374,6 +376,8 @@ class ModelSpec:
     redshift: float = 0.0
     particle_mass: float | None = None
     output: OutputSpec = OutputSpec()
+    quiet_start: bool = False
+    mirror: bool = False
 
     def __post_init__(self):
         if not isinstance(self.name, str) or not self.name.strip() or not self.name.isprintable():
@@ -388,6 +392,9 @@ class ModelSpec:
              _optional_positive("model.particle_mass", self.particle_mass, "Msun"))  # fmt: skip
         if not isinstance(self.output, OutputSpec):
             raise ModelError("output", self.output, "must be an OutputSpec")
+        for key in ("quiet_start", "mirror"):
+            if not isinstance(getattr(self, key), bool):
+                raise ModelError(f"model.{key}", getattr(self, key), "must be true or false")
         self._check_components()
 
     def _check_components(self):
@@ -426,6 +433,7 @@ class ModelSpec:
                  f"cosmology = {_toml_string(self.cosmology)}", f"redshift = {self.redshift!r}"]  # fmt: skip
         if self.particle_mass is not None:
             lines.append(f"particle_mass = {_toml_value('particle_mass', self.particle_mass)}")
+        lines += [f"{k} = true" for k in ("quiet_start", "mirror") if getattr(self, k)]
         lines += ["", "[output]"]
         lines += [f"{k} = {_toml_string(getattr(self.output, k))}" for k in _OUTPUT_KEYS]
         for spec in self.components:
@@ -456,6 +464,8 @@ def _toml_value(key, value):
         return _toml_string(value)
     if kind == "count":
         return str(int(value))
+    if kind == "flag":
+        return "true" if value else "false"
     if kind == "number":
         return repr(float(value))
     return _toml_string(f"{float(value)!r} {kind[0]}")

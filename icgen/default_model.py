@@ -60,6 +60,11 @@ cosmology = "Planck18"      # astropy realization for the critical density: Plan
 redshift = 0.0              # redshift at which the NFW M200 and r200 are defined
 # particle_mass = "1e5 Msun"  # common particle mass, used by every component that gives
                               # no `particles` (then the count is mass / particle_mass)
+# quiet_start = false       # true: draw from a scrambled Sobol sequence instead of random
+                            # numbers: smoother profiles (a "quiet start", Sellwood 1983,
+                            # J. Comput. Phys. 50, 337)
+# mirror = false            # true: each particle is followed by its reflection (-x, -v), so
+                            # the centre of mass is at rest at the centre by construction
 
 [output]                    # units of the written snapshot (any astropy unit of the type)
 length_unit = "kpc"

@@ -141,6 +141,46 @@ def test_file_holds_exactly_what_was_sampled(reference, sampled):
     assert np.array_equal(np.sort(ids), np.arange(1, 80_002))     # unique across the file
 
 
+def _with_model_keys(folder, name, lines):
+    path = Path(folder) / name
+    path.write_text(Path(write_model(folder)).read_text().replace(
+        "seed = 31\n", "seed = 31\n" + lines))
+    return str(path)
+
+
+def test_mirror_key_pairs_particles_and_keeps_the_dense_centre_at_the_origin(
+        workdir, reference):
+    # [model] mirror = true: each particle is followed by its point reflection, so the
+    # centre of mass is at the origin by construction (up to summation round-off) and
+    # the centring pass moves nothing; without it the dense centre ends up off the
+    # origin by ~ r_rms / sqrt(N) (common practice in N-body set-ups: symmetric pairs).
+    from icgen.diagnostics.measure import shrinking_sphere_centre
+    out = workdir / "mirrored.h5"
+    assert build(_with_model_keys(workdir, "mirrored.toml", "mirror = true\n"), out) == 0
+    snap = read_snapshot(out)
+    assert load_model_from_snapshot(out).spec.mirror
+    for name in ("halo", "disk", "bulge"):
+        pos, vel = snap.components[name]["position"], snap.components[name]["velocity"]
+        assert np.abs(pos[0::2] + pos[1::2]).max() < 1e-9
+        assert np.abs(vel[0::2] + vel[1::2]).max() < 1e-9
+    halo = snap.components["halo"]
+    centre = shrinking_sphere_centre(halo["position"], halo["mass"])
+    ref = read_snapshot(reference).components["halo"]
+    ref_centre = shrinking_sphere_centre(ref["position"], ref["mass"])
+    assert np.linalg.norm(centre) < 1e-6 < 1e-3 < np.linalg.norm(ref_centre)
+
+
+def test_quiet_start_key_is_the_samplers_quiet_start(workdir, model_file):
+    # [model] quiet_start = true in the file gives what sample(quiet_start=True) gives
+    out = workdir / "quiet.h5"
+    assert build(_with_model_keys(workdir, "quiet.toml", "quiet_start = true\n"), out) == 0
+    snap = read_snapshot(out)
+    parts = sampling.sample(GalaxyModel(load_spec(model_file)), quiet_start=True)
+    for name in ("halo", "disk", "bulge"):
+        np.testing.assert_allclose(snap.components[name]["position"],
+                                   parts[name]["position"], rtol=0, atol=1e-12)
+
+
 def test_single_precision_is_the_sample_rounded(workdir, model_file, sampled):
     out = workdir / "single.h5"
     assert build(model_file, out, "--precision", "single") == 0

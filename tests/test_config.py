@@ -198,7 +198,8 @@ def test_to_toml_round_trips():
 
 def test_round_trip_keeps_every_optional_field():
     data = default_dict()
-    data["model"].update(name='odd "name" \\ here', cosmology="WMAP9", redshift=0.5, particle_mass="2e5 Msun")
+    data["model"].update(name='odd "name" \\ here', cosmology="WMAP9", redshift=0.5, particle_mass="2e5 Msun",
+                         quiet_start=True, mirror=True)
     data["output"].update(length_unit="pc", mass_unit="Msun")
     data["components"]["disk"].update(taper_radius="20 kpc", toomre_q_radius="6 kpc", vertical="exponential")
     data["components"]["halo"].update(outer_radius="300 kpc", truncation_width="20 kpc",
@@ -293,6 +294,8 @@ BAD_INPUTS = [
     (_set("model.redshift", -0.5), "model.redshift", ">= 0"),
     (_set("model.cosmology", "Planck2018"), "model.cosmology", "did you mean 'Planck18'?"),
     (_set("model.name", ""), "model.name", "non-empty"),
+    (_set("model.mirror", 1), "model.mirror", "true or false"),
+    (_set("model.quiet_start", "yes"), "model.quiet_start", "true or false"),
     (_set("model.particle_mass", 1e5), "model.particle_mass", "unit"),
     (_set("output.mass_unit", "kpc"), "output.mass_unit", "mass unit"),
     (_set("output.length_unit", "parsec s"), "output.length_unit", "length unit"),
@@ -338,6 +341,7 @@ def test_defaults_for_absent_model_keys():
     del data["model"], data["output"]
     spec = spec_from_dict(data)
     assert (spec.name, spec.seed, spec.cosmology, spec.redshift) == ("unnamed model", 1, "Planck18", 0.0)
+    assert (spec.quiet_start, spec.mirror) == (False, False)
     assert spec.output == OutputSpec()
 
 

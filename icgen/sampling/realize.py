@@ -199,7 +199,10 @@ def samplers(model):
 
 def _block(model, cplan, block, quiet_start, mirror):
     """One block of a component: (columns, clamped count); columns are position,
-    velocity, mass and, for gas, internal energy."""
+    velocity, mass and, for gas, internal energy. ``quiet_start``/``mirror`` None: the
+    model file's ``[model]`` settings."""
+    quiet_start = model.spec.quiet_start if quiet_start is None else bool(quiet_start)
+    mirror = model.spec.mirror if mirror is None else bool(mirror)
     start = block * seeds.BLOCK_SIZE
     n_out = min(seeds.BLOCK_SIZE, cplan.count - start)
     n_base = (n_out + 1) // 2 if mirror else n_out
@@ -234,7 +237,7 @@ def _check_options(chunk_size=1):
         raise ModelError("chunk_size", chunk_size, "must be a whole number >= 1")
 
 
-def iter_chunks(model, chunk_size=262144, quiet_start=False, mirror=False, report=None):
+def iter_chunks(model, chunk_size=262144, quiet_start=None, mirror=None, report=None):
     """Yield ParticleChunk objects component by component, in model-file order.
 
     Parameters
@@ -243,10 +246,12 @@ def iter_chunks(model, chunk_size=262144, quiet_start=False, mirror=False, repor
     chunk_size : int
         Particles per chunk (the last chunk of a component may be shorter). The particles
         do not depend on it.
-    quiet_start : bool
+    quiet_start : bool or None
         Positions and velocities from a scrambled Sobol sequence (one per component).
-    mirror : bool
-        Each particle followed by its point reflection (x, v) -> (-x, -v).
+        None: the model file's ``[model] quiet_start`` (default false).
+    mirror : bool or None
+        Each particle followed by its point reflection (x, v) -> (-x, -v). None: the
+        model file's ``[model] mirror`` (default false).
     report : SamplingReport, optional
         Filled in with the plan, warnings, timing, clamped mass fractions and the sums
         behind ``report.center_of_mass()`` (for removing the offset after streaming).
@@ -296,7 +301,7 @@ def _component_chunks(model, cplan, chunk_size, quiet_start, mirror, report):
         report.clamped_mass_fraction[cplan.name] = clamped / cplan.count
 
 
-def particles(model, component, start, stop, quiet_start=False, mirror=False):
+def particles(model, component, start, stop, quiet_start=None, mirror=None):
     """Particles start .. stop - 1 of one component as a ParticleChunk.
 
     An independent unit of work: it needs only the model (and its cached tables), so
@@ -317,7 +322,7 @@ def particles(model, component, start, stop, quiet_start=False, mirror=False):
     return _chunk(component, start, [np.concatenate(c) for c in zip(*parts)])
 
 
-def sample(model, quiet_start=False, mirror=False, report=None):
+def sample(model, quiet_start=None, mirror=None, report=None):
     """All particles in memory, centre of mass moved to rest at the origin.
 
     The offset is that of the whole realisation, far-out particles included: for a
@@ -346,7 +351,7 @@ def sample(model, quiet_start=False, mirror=False, report=None):
     return out
 
 
-def center_of_mass(model, quiet_start=False, mirror=False):
+def center_of_mass(model, quiet_start=None, mirror=None):
     """(position (3,) kpc, velocity (3,) km/s) of the full realisation, by one streamed
     pass that keeps nothing; a writer that streamed chunks can also read it from the
     SamplingReport it passed to ``iter_chunks``."""
