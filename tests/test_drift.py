@@ -151,6 +151,26 @@ def test_gas_model_falls_back_to_evaluate_off_the_grid():
     assert np.array_equal(x1, x2) and np.array_equal(v1, v2)
 
 
+def test_gas_is_listed_but_not_integrated():
+    # gas particles hold their orbits with pressure forces the frozen potential does not
+    # have: integrating them as collisionless test particles would report a drift that
+    # says nothing of the model, so the drift test leaves them out and says so
+    import warnings
+    from icgen import sampling
+    model = model_from_components({
+        "halo": {"kind": "halo", "profile": "nfw", "mass": "1e11 Msun",
+                 "concentration": 10, "particles": 3000},
+        "gas": {"kind": "gas_disk", "mass": "5e9 Msun", "scale_length": "3 kpc",
+                "temperature": "1e4 K", "particles": 1000}})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        parts = sampling.sample(model)
+    res = drift.run_drift(model, parts, 0.01, outputs=2)
+    assert list(res.components) == ["halo"] and res.settings["particles"] == 3000
+    assert "gas" in res.settings["not_integrated"]
+    assert "not integrated: gas" in drift.format_report(res)
+
+
 def test_force_field_equals_evaluate(default_model):
     # Independent check of the packing: the point-by-point force equals evaluate()'s
     # array path at random points from the centre (inside the exact core) to beyond

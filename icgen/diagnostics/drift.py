@@ -6,7 +6,8 @@ total potential of the model stored in the file. A model in equilibrium keeps it
 distribution function, so every measured profile stays the same up to particle noise;
 a model out of equilibrium (wrong velocities, a Jeans-moment cuspy halo; Kazantzidis,
 Magorrian & Moore 2004, ApJ 601, 37) relaxes within a few orbital times and its profiles
-move. Point masses are the fixed centre of the potential and are not integrated.
+move. Point masses (the fixed centre of the potential) and gas disks (their pressure
+support is no force of the potential) are not integrated; the report says so.
 
 **Steps.** Each particle has its own constant step, a power-of-two fraction of the output
 interval, no longer than ``STEP_ACCURACY`` times its dynamical time at pericentre
@@ -336,14 +337,24 @@ def _json_safe(x):
     return x
 
 
+#: Components not integrated, and why (reported with the results).
+NOT_INTEGRATED = {"point_mass": "the fixed centre of the potential",
+                  "gas_disk": "pressure-supported gas: orbits without pressure forces would "
+                              "fall inwards, which says nothing of the model"}
+
+
 def _layout(model, parts, weights):
-    """(layout, pos, vel) with point masses left out (they are the fixed centre)."""
-    layout, pos, vel, start = [], [], [], 0
+    """(layout, pos, vel, skipped): point masses and gas disks are left out
+    (NOT_INTEGRATED says why)."""
+    layout, pos, vel, start, skipped = [], [], [], 0, {}
     for name, p in parts.items():
         comp = model.components.get(name)
         if comp is None:
             raise ModelError("particles", name, "no component of that name in the model")
-        if comp.kind == "point_mass" or p["mass"].size == 0:
+        if comp.kind in NOT_INTEGRATED:
+            skipped[name] = NOT_INTEGRATED[comp.kind]
+            continue
+        if p["mass"].size == 0:
             continue
         n = p["mass"].size
         scale = comp.R_d if comp.kind == "disk" else comp.scale
@@ -353,8 +364,9 @@ def _layout(model, parts, weights):
         vel.append(np.asarray(p["velocity"], float))
         start += n
     if not layout:
-        raise ModelError("particles", MISSING, "no particles to integrate (only point masses?)")
-    return layout, np.concatenate(pos), np.concatenate(vel)
+        raise ModelError("particles", MISSING, "no particles to integrate (only point masses "
+                                               "or gas?)")
+    return layout, np.concatenate(pos), np.concatenate(vel), skipped
 
 
 def _error_stats(rel):
@@ -397,7 +409,7 @@ def run_drift(model, parts, duration, step=None, outputs=OUTPUTS, threshold=THRE
     DriftResult
     """
     t_start = time.perf_counter()
-    layout, pos, vel = _layout(model, parts, weights or {})
+    layout, pos, vel, skipped = _layout(model, parts, weights or {})
     interval = duration / outputs / TIME_UNIT_GYR
     m, step_info = choose_steps(model, pos, vel, interval,
                                 None if step is None else step / TIME_UNIT_GYR)
@@ -420,7 +432,7 @@ def run_drift(model, parts, duration, step=None, outputs=OUTPUTS, threshold=THRE
         model=model.name, source=str(source),
         settings={"duration_gyr": duration, "outputs": outputs, "step_gyr": step,
                   "threshold": threshold, "sigma_limit": SIGMA_LIMIT,
-                  "particles": int(len(orbits))},
+                  "particles": int(len(orbits)), "not_integrated": skipped},
         components=comps, times_gyr=times,
         quantities=_drift_rows(layout, records, threshold), energy=energy, lz=lz,
         steps=step_info,
@@ -562,7 +574,9 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
         from ..snapshot import read_header
         seed = int(read_header(path)[0]["seed"])
     parts, shift = recentre(parts)
-    chosen, weights = subsample(parts, sample, seed)
+    skip = [n for n in parts if model.components[n].kind in NOT_INTEGRATED]
+    chosen, weights = subsample({n: p for n, p in parts.items() if n not in skip}, sample, seed)
+    chosen.update({n: parts[n] for n in skip})       # listed in the report, not integrated
     t_read = time.perf_counter() - t0
     res = run_drift(model, chosen, duration, step, outputs, float(threshold), weights,
                     quiet, source=path)
@@ -595,6 +609,8 @@ def format_report(res, all_rows=False):
                     f"results near the centre are unreliable; use a smaller --step]"))
     lines.append(f"L_z error |dL_z|/|L| (max over time): median {res.lz['median']:.2e}, "
                  f"max {res.lz['max']:.2e}")
+    for name, why in s.get("not_integrated", {}).items():
+        lines.append(f"not integrated: {name} ({why})")
     lines.append("median position at the start (potential centre at 0): " + "; ".join(
         f"{n} ({', '.join(f'{x:+.3g}' for x in c['centre_offset_kpc'])}) kpc"
         for n, c in res.components.items()))
