@@ -526,6 +526,33 @@ def read_header(path):
         return _header_of(f, path)
 
 
+def read_rows(path, rows, slab=1 << 20):
+    """Some particles of a snapshot, in the file's units, holding in memory only them and
+    one slab of ``slab`` rows at a time.
+
+    ``rows`` maps component -> sorted row indices. Returns component -> dict of the
+    position, velocity, mass (and internal_energy) rows, in that order.
+    """
+    out = {}
+    with _open(path) as f:
+        for name, idx in rows.items():
+            g = f["particles"][name]
+            idx = np.asarray(idx, np.int64)
+            comp = {}
+            for key in ("position", "velocity", "mass", "internal_energy"):
+                if key not in g:
+                    continue
+                ds, pieces = g[key], []
+                for lo in range(0, ds.shape[0], slab):
+                    a, b = np.searchsorted(idx, [lo, lo + slab])
+                    if b > a:
+                        pieces.append(ds[lo:lo + slab][idx[a:b] - lo])
+                comp[key] = (np.concatenate(pieces) if pieces
+                             else np.empty((0,) + ds.shape[1:], ds.dtype))
+            out[name] = comp
+    return out
+
+
 def read_snapshot(path, quantity=False):
     """Read a whole snapshot (schema version 1) into memory.
 

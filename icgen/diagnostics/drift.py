@@ -116,26 +116,35 @@ def check_report_dir(path):
         raise ModelError("--report", path, f"folder {parent!r} does not exist")
 
 
-def subsample(parts, total, seed):
-    """A random subsample of ``total`` particles, proportional per component.
+def choose_rows(counts, total, seed):
+    """Rows of a random subsample of ``total`` particles, proportional per component.
 
-    Returns (parts, weights): the chosen particles (sorted indices, so the sample is the
-    same for any order of work) and per component the mass factor count / chosen.
+    ``counts`` maps component -> particle count. Returns (rows, weights): sorted row
+    indices per component (all rows when ``total`` is None or not smaller than the sum)
+    and the mass factor count / chosen.
     """
-    counts = {n: p["mass"].size for n, p in parts.items()}
     everything = sum(counts.values())
     if total is None or total >= everything:
-        return parts, {n: 1.0 for n in parts}
+        return {n: np.arange(c) for n, c in counts.items()}, {n: 1.0 for n in counts}
     rng = np.random.default_rng(seed)
-    out, weights = {}, {}
-    for name, p in parts.items():
-        k = int(round(total * counts[name] / everything))
+    rows, weights = {}, {}
+    for name, c in counts.items():
+        k = int(round(total * c / everything))
         if k == 0:
             continue
-        idx = np.sort(rng.choice(counts[name], size=k, replace=False))
-        out[name] = {key: p[key][idx] for key in ("position", "velocity", "mass")}
-        weights[name] = counts[name] / k
-    return out, weights
+        rows[name] = np.sort(rng.choice(c, size=k, replace=False))
+        weights[name] = c / k
+    return rows, weights
+
+
+def subsample(parts, total, seed):
+    """A random subsample of ``total`` particles of in-memory ``parts``, proportional per
+    component (:func:`choose_rows`). Returns (parts, weights)."""
+    rows, weights = choose_rows({n: p["mass"].size for n, p in parts.items()}, total, seed)
+    if total is None or all(w == 1.0 for w in weights.values()):
+        return parts, weights
+    return {n: {key: parts[n][key][idx] for key in ("position", "velocity", "mass")}
+            for n, idx in rows.items()}, weights
 
 
 # ------------------------------------------------------------------ measurements
@@ -525,13 +534,13 @@ def parse_number(value, key, default):
 CENTRE_MASS_FRACTION = 0.05
 
 
-def recentre(parts):
-    """Move particles so the density centre (shrinking sphere, Power et al. 2003) is at rest
-    at the origin, where the frozen potential is centred.
+def density_centre(parts):
+    """Position and velocity of the density centre: the shrinking sphere (Power et al.
+    2003) and the mean velocity of the CENTRE_MASS_FRACTION of the mass nearest to it.
 
     A snapshot has its centre of mass at the origin; that centre is set by the far halo
     particles and misses the dense centre by ~ r_rms/sqrt(N) (0.1-0.3 kpc at 1e6): in a
-    frozen potential the disk would then slosh. Returns (new parts, {"position", "velocity"}).
+    frozen potential centred at 0 the disk would then slosh.
     """
     from .measure import shrinking_sphere_centre
     live = [p for p in parts.values() if p["mass"].size]
@@ -542,10 +551,34 @@ def recentre(parts):
     d2 = np.einsum("ij,ij->i", pos - c, pos - c)
     order = np.argsort(d2)
     inner = order[:np.searchsorted(np.cumsum(m[order]), CENTRE_MASS_FRACTION * m.sum()) + 1]
-    v = m[inner] @ vel[inner] / m[inner].sum()
+    return c, m[inner] @ vel[inner] / m[inner].sum()
+
+
+def recentre(parts):
+    """Move particles so the density centre is at rest at the origin, where the frozen
+    potential is centred. Returns (new parts, {"position_kpc", "velocity_kms"})."""
+    c, v = density_centre(parts)
     out = {name: {**p, "position": p["position"] - c, "velocity": p["velocity"] - v}
            for name, p in parts.items()}
     return out, {"position_kpc": c.tolist(), "velocity_kms": v.tolist()}
+
+
+#: At most this many particles (a seeded random subset) locate the density centre of a
+#: snapshot; with the integrated sample this bounds what ``icgen drift`` holds in memory.
+CENTRE_PARTICLES = 2_000_000
+
+
+def read_rows(path, rows):
+    """Chosen rows of a snapshot (see icgen.snapshot.read_rows) in internal units: kpc,
+    km/s, Msun."""
+    from .. import snapshot
+    from ..units import unit_scale
+    attrs, _ = snapshot.read_header(path)
+    scale = {key: unit_scale(attrs[f"{kind}_unit"], kind, f"{path}:{kind}_unit")
+             for key, kind in (("position", "length"), ("velocity", "velocity"),
+                               ("mass", "mass"))}
+    return {n: {k: np.asarray(c[k], np.float64) / scale[k] for k in scale}
+            for n, c in snapshot.read_rows(path, rows).items()}
 
 
 def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OUTPUTS,
@@ -567,21 +600,28 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
     seed = parse_whole(seed, "--seed", 0)
     outputs = parse_whole(outputs, "--outputs", 1, OUTPUTS)
     threshold = parse_number(threshold, "--threshold", THRESHOLD)
-    from .check import read_particles
+    from ..snapshot import load_model_from_snapshot, read_header
     t0 = time.perf_counter()
-    model, parts, _ = read_particles(path)
-    if seed is None:
-        from ..snapshot import read_header
-        seed = int(read_header(path)[0]["seed"])
-    parts, shift = recentre(parts)
-    skip = [n for n in parts if model.components[n].kind in NOT_INTEGRATED]
-    chosen, weights = subsample({n: p for n, p in parts.items() if n not in skip}, sample, seed)
-    chosen.update({n: parts[n] for n in skip})       # listed in the report, not integrated
+    attrs, header = read_header(path)
+    model = load_model_from_snapshot(path)
+    seed = int(attrs["seed"]) if seed is None else seed
+    counts = {n: int(h["count"]) for n, h in header.items()}
+    rows, _ = choose_rows(counts, CENTRE_PARTICLES, seed)
+    c, v = density_centre(read_rows(path, rows))
+    shift = {"position_kpc": c.tolist(), "velocity_kms": v.tolist()}
+    skip = [n for n in counts if model.components[n].kind in NOT_INTEGRATED]
+    rows, weights = choose_rows({n: k for n, k in counts.items() if n not in skip}, sample,
+                                seed)
+    chosen = {n: {**p, "position": p["position"] - c, "velocity": p["velocity"] - v}
+              for n, p in read_rows(path, rows).items()}
+    chosen.update({n: {"position": np.zeros((0, 3)), "velocity": np.zeros((0, 3)),
+                       "mass": np.zeros(0)} for n in skip})       # listed, not integrated
+    parts_total = sum(counts.values())
     t_read = time.perf_counter() - t0
     res = run_drift(model, chosen, duration, step, outputs, float(threshold), weights,
                     quiet, source=path)
     res.settings.update(sample=sample, seed=seed, recentred_by=shift,
-                        file_particles=int(sum(p["mass"].size for p in parts.values())))
+                        file_particles=int(parts_total))
     res.timing = {"read + model_s": t_read, **res.timing}
     return res
 
