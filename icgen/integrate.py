@@ -213,7 +213,7 @@ class Orbits:
     def _evaluate(self, idx):
         x, y = self.x[idx], self.y[idx]
         R = np.sqrt(x * x + y * y)            # as the kernel computes it, for equal bits
-        return (np.ascontiguousarray(a) for a in self.evaluate(R, self.z[idx]))
+        return tuple(np.ascontiguousarray(a) for a in self.evaluate(R, self.z[idx]))
 
     def _run(self, idx, dt, pool):
         """Run the kernel on particles ``idx`` in about TASKS_PER_THREAD x threads chunks
@@ -248,7 +248,7 @@ class Orbits:
             if pool is not None:
                 pool.shutdown()
         self.steps_taken += int(self.steps.sum())
-        self._phi = next(iter(self._evaluate(np.arange(self.x.size))))
+        self._phi = self._evaluate(np.arange(self.x.size))[0]
 
     def energy(self):
         """Specific energy E = v^2/2 + Phi per particle, (km/s)^2, sorted order."""

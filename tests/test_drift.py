@@ -127,15 +127,19 @@ def test_inline_forces_give_the_same_orbits_bit_for_bit(small_model):
         assert np.array_equal(a, b)
 
 
+def _halo_and_gas(n_halo, n_gas):
+    """An invented NFW halo with an isothermal gas disk (components table)."""
+    return {"halo": {"kind": "halo", "profile": "nfw", "mass": "1e11 Msun",
+                     "concentration": 10, "particles": n_halo},
+            "gas": {"kind": "gas_disk", "mass": "5e9 Msun", "scale_length": "3 kpc",
+                    "temperature": "1e4 K", "particles": n_gas}}
+
+
 def test_gas_model_falls_back_to_evaluate_off_the_grid():
     # Gas layers have no numba form: off the grid (here halo particles beyond the
     # halo's cut-off radius) the kernel stops and Python supplies the force; the orbits
     # must still equal those of the all-Python path.
-    model = model_from_components({
-        "halo": {"kind": "halo", "profile": "nfw", "mass": "1e11 Msun",
-                 "concentration": 10, "particles": 10},
-        "gas": {"kind": "gas_disk", "mass": "5e9 Msun", "scale_length": "3 kpc",
-                "temperature": "1e4 K", "particles": 10}})
+    model = model_from_components(_halo_and_gas(10, 10))
     P = model.potential
     edge = P.grid.s * np.sinh(P.grid.x_max - 12 * P.grid.h)
     rng = np.random.default_rng(9)
@@ -157,11 +161,7 @@ def test_gas_is_listed_but_not_integrated():
     # says nothing of the model, so the drift test leaves them out and says so
     import warnings
     from icgen import sampling
-    model = model_from_components({
-        "halo": {"kind": "halo", "profile": "nfw", "mass": "1e11 Msun",
-                 "concentration": 10, "particles": 3000},
-        "gas": {"kind": "gas_disk", "mass": "5e9 Msun", "scale_length": "3 kpc",
-                "temperature": "1e4 K", "particles": 1000}})
+    model = model_from_components(_halo_and_gas(3000, 1000))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         parts = sampling.sample(model)

@@ -518,15 +518,22 @@ def _timed(timing, label, fn):
     return out
 
 
+def internal_scales(units, path):
+    """Divisors taking a snapshot's datasets to internal units (kpc, km/s, Msun):
+    dataset name -> factor, from ``units`` {"length", "velocity", "mass"} of ``path``."""
+    from ..units import unit_scale
+    scale = {key: unit_scale(units[kind], kind, f"{path}:{kind}_unit") for key, kind in
+             (("position", "length"), ("velocity", "velocity"), ("mass", "mass"))}
+    scale["internal_energy"] = scale["velocity"] ** 2
+    return scale
+
+
 def read_particles(path):
     """(GalaxyModel, parts, stored analytic curve) of a snapshot, in internal units."""
     from ..snapshot import load_model_from_snapshot, read_snapshot
-    from ..units import unit_scale
     snap = read_snapshot(path)
     model = load_model_from_snapshot(path)
-    scale = {key: unit_scale(snap.units[kind], kind, f"{path}:{kind}_unit") for key, kind in
-             (("position", "length"), ("velocity", "velocity"), ("mass", "mass"))}
-    scale["internal_energy"] = scale["velocity"] ** 2
+    scale = internal_scales(snap.units, path)
     parts = {name: {k: np.asarray(c[k], np.float64) / scale[k] for k in scale if k in c}
              for name, c in snap.components.items()}
     curve = {key: np.asarray(v, np.float64) / scale["position" if key == "radius" else "velocity"]

@@ -571,16 +571,15 @@ def recentre(parts):
 CENTRE_PARTICLES = 2_000_000
 
 
-def read_rows(path, rows):
+def read_rows(path, rows, attrs):
     """Chosen rows of a snapshot (see icgen.snapshot.read_rows) in internal units: kpc,
-    km/s, Msun."""
+    km/s, Msun; ``attrs`` are its root attributes (for the units)."""
     from .. import snapshot
-    from ..units import unit_scale
-    attrs, _ = snapshot.read_header(path)
-    scale = {key: unit_scale(attrs[f"{kind}_unit"], kind, f"{path}:{kind}_unit")
-             for key, kind in (("position", "length"), ("velocity", "velocity"),
-                               ("mass", "mass"))}
-    return {n: {k: np.asarray(c[k], np.float64) / scale[k] for k in scale}
+    from .check import internal_scales
+    scale = internal_scales({k: attrs[f"{k}_unit"] for k in ("length", "velocity", "mass")},
+                            path)
+    keys = ("position", "velocity", "mass")
+    return {n: {k: np.asarray(c[k], np.float64) / scale[k] for k in keys}
             for n, c in snapshot.read_rows(path, rows).items()}
 
 
@@ -610,13 +609,13 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
     seed = int(attrs["seed"]) if seed is None else seed
     counts = {n: int(h["count"]) for n, h in header.items()}
     rows, _ = choose_rows(counts, CENTRE_PARTICLES, seed)
-    c, v = density_centre(read_rows(path, rows))
+    c, v = density_centre(read_rows(path, rows, attrs))
     shift = {"position_kpc": c.tolist(), "velocity_kms": v.tolist()}
     skip = [n for n in counts if model.components[n].kind in NOT_INTEGRATED]
     rows, weights = choose_rows({n: k for n, k in counts.items() if n not in skip}, sample,
                                 seed)
     chosen = {n: {**p, "position": p["position"] - c, "velocity": p["velocity"] - v}
-              for n, p in read_rows(path, rows).items()}
+              for n, p in read_rows(path, rows, attrs).items()}
     chosen.update({n: {"position": np.zeros((0, 3)), "velocity": np.zeros((0, 3)),
                        "mass": np.zeros(0)} for n in skip})       # listed, not integrated
     parts_total = sum(counts.values())

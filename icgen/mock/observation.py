@@ -22,7 +22,7 @@ from ..errors import ModelError
 from . import cube as cubes
 from .project import Geometry, Instrument, project_particles
 from .tilted_ring import fit_tilted_rings, major_axis_curve
-from .truth import cylindrical, stellar_moments, truth_table
+from .truth import stellar_moments, truth_table
 
 __all__ = ["MockObservation", "observe", "tracer_particles", "OUTPUT_FILES", "TRACER_KINDS"]
 

@@ -85,10 +85,10 @@ class GalaxyPotential:
             far = self._exact(Rf[outside], zf[outside], self._gridded_names)
             for arr, val in zip((phi, f_r, f_z), far):
                 arr[outside] = val
-        self._add_spheres(Rf, zf, self._analytic, phi, f_r, f_z)
+        self._add_closed_forms_and_table(Rf, zf, self._analytic, phi, f_r, f_z)
         return phi, f_r, f_z
 
-    def _add_spheres(self, Rf, zf, names, phi, f_r, f_z):
+    def _add_closed_forms_and_table(self, Rf, zf, names, phi, f_r, f_z):
         """Add closed-form spheres and the summed tables of the named components."""
         for name in names:
             for code, mass, a in self.components[name].analytic_terms():
@@ -117,7 +117,7 @@ class GalaxyPotential:
                 s0, r_d, r_t, w_t, z_d, code = c.thin_layer_params()
                 kernels.add_thin_layer(Rf, zf, 4 * np.pi * G * s0, r_d, r_t, w_t, z_d,
                                        int(code), phi, f_r, f_z)
-        self._add_spheres(Rf, zf, names, phi, f_r, f_z)
+        self._add_closed_forms_and_table(Rf, zf, names, phi, f_r, f_z)
         return phi, f_r, f_z
 
     def force_field(self):
