@@ -1,9 +1,10 @@
 """Build a snapshot file: model -> potential -> sampled chunks -> streamed HDF5 writer.
 
 ``build_snapshot`` is what ``icgen build`` runs. Memory stays bounded whatever the
-particle count: one chunk of particles (``chunk_size``) is held at a time, and the
-centre-of-mass offset, known only once every particle is made, is removed by a second
-in-place pass over the written datasets, again chunk by chunk.
+particle count: one chunk of particles (``chunk_size``) is held at a time. Positions are
+written as sampled, so the model's centre is the origin of the file; the net momentum,
+known only once every particle is made, is removed by a uniform velocity shift in a second
+in-place pass over the velocities, slab by slab.
 
 Every input is checked before any work starts (ModelError, nothing written). SIGINT and
 SIGTERM become :class:`BuildInterrupted`; like any error they remove the temporary file.
@@ -97,21 +98,23 @@ class ComponentSummary:
     particle_mass: float
     total_mass: float
     half_mass_radius: float
+    farthest: float
 
 
 @dataclass
 class BuildResult:
     """What ``build_snapshot`` wrote.
 
-    ``centre_offset`` is the (position kpc, velocity km/s) mean that was subtracted;
-    ``timing`` holds seconds per stage; ``warnings`` the sampler's messages.
+    ``centre_of_mass`` is (position kpc, velocity km/s) of the sampled particles, the
+    velocity being the uniform shift's opposite (positions are not moved); ``timing``
+    holds seconds per stage; ``warnings`` the sampler's messages.
     """
     path: str
     size_bytes: int
     seed: int
     units: object
     components: list
-    centre_offset: tuple
+    centre_of_mass: tuple
     timing: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
     notes: list = field(default_factory=list)
@@ -122,15 +125,20 @@ class BuildResult:
 
         L, M = self.units.length, self.units.mass
         rows = [[c.name, c.kind, f"{c.count:,}", f"{c.particle_mass:.4g}",
-                 f"{c.total_mass:.4g}", f"{c.half_mass_radius:.4g}"] for c in self.components]
+                 f"{c.total_mass:.4g}", f"{c.half_mass_radius:.4g}", f"{c.farthest:.4g}"]
+                for c in self.components]
         headers = ["component", "kind", "particles", f"m/particle [{M}]",
-                   f"total mass [{M}]", f"r_half [{L}]"]
-        x0, v0 = self.centre_offset
+                   f"total mass [{M}]", f"r_half [{L}]", f"r_max [{L}]"]
+        x0, v0 = self.centre_of_mass
+        vec = lambda v: "(" + ", ".join(f"{c:+.3g}" for c in v) + ")"
         lines = [format_table(headers, rows), "",
-                 "r_half: half-mass radius about the component's own centre of mass, "
-                 "from the written particles",
-                 f"centre of mass moved to the origin: offset {np.linalg.norm(x0):.3g} kpc, "
-                 f"{np.linalg.norm(v0):.3g} km/s", *self.notes,
+                 "r_half, r_max: half-mass radius and farthest particle, about the model "
+                 "centre (the origin), from the written particles",
+                 f"centre of mass of the particles: {vec(x0)} kpc from the model centre "
+                 f"(|d| = {np.linalg.norm(x0):.3g} kpc, sampling noise; positions are not "
+                 f"moved)",
+                 f"net momentum removed: every velocity shifted by {vec(-v0)} km/s",
+                 *self.notes,
                  f"wrote {self.path} ({self.size_bytes / 1e6:.1f} MB, seed {self.seed}) "
                  f"in {sum(self.timing.values()):.1f} s"]
         return "\n".join(lines)
@@ -228,8 +236,8 @@ def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double
             with SnapshotWriter(path, spec, plans, precision, compress) as writer:
                 report = sampling.SamplingReport()
                 _stream(model, writer, plans, chunk_size, bars, timing, report, guard)
-                # the sampler sums m x and m v per fixed block: an offset that does not
-                # depend on chunk_size, hence bit-identical files
+                # the sampler sums m x and m v per fixed block: a velocity shift that
+                # does not depend on chunk_size, hence bit-identical files
                 _finish(model, writer, plans, bars, timing, report.center_of_mass(), guard)
                 guard.check()
                 t0 = time.perf_counter()
@@ -303,7 +311,7 @@ def _stream(model, writer, plans, chunk_size, bars, timing, report, guard):
 
 
 def _finish(model, writer, plans, bars, timing, offset, guard):
-    """Centre-of-mass pass, analytic rotation curve and attributes."""
+    """Velocity pass (net momentum to zero), analytic rotation curve and attributes."""
     from .diagnostics import curve
 
     t0 = time.perf_counter()
@@ -311,13 +319,13 @@ def _finish(model, writer, plans, bars, timing, offset, guard):
     radius = table["radius"].to_value(u.kpc)
     speeds = {name: table[f"v_circ_{name}"].to_value(u.km / u.s)
               for name in ["total"] + [p.name for p in plans]}
-    with stage_bar("centring", sum(p.count for p in plans), bars, unit=" particles") as bar:
+    with stage_bar("momentum", sum(p.count for p in plans), bars, unit=" particles") as bar:
         def progress(n):
             guard.check()
             bar.update(n)
 
-        writer.finish(radius, speeds, offset=offset, progress=progress)
-    timing["centring"] = time.perf_counter() - t0
+        writer.finish(radius, speeds, momentum=offset, progress=progress)
+    timing["momentum"] = time.perf_counter() - t0
 
 
 def _result(writer, plans, path, spec, timing, messages):
@@ -327,6 +335,6 @@ def _result(writer, plans, path, spec, timing, messages):
     for p in plans:
         total = writer.streams[p.name].total_out
         comps.append(ComponentSummary(p.name, p.kind, p.count, total / p.count, total,
-                                      radii[p.name]))
+                                      radii[p.name], writer.streams[p.name].r_max))
     return BuildResult(path, os.path.getsize(path), spec.seed, units, comps,
-                       writer.centre, timing, messages)
+                       writer.bulk, timing, messages)

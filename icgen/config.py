@@ -78,8 +78,8 @@ _SPHEROID_COMMON_KEYS = ("kind", "profile", "particles", "velocities", "anisotro
 _PROFILE_KEYS = {
     "nfw": ("mass", "concentration", "density_scale", "scale_radius", "outer_radius",
             "truncation_width"),
-    "hernquist": ("mass", "scale_radius"),
-    "plummer": ("mass", "scale_radius"),
+    "hernquist": ("mass", "scale_radius", "outer_radius", "truncation_width"),
+    "plummer": ("mass", "scale_radius", "outer_radius", "truncation_width"),
     "pseudo_isothermal": ("mass", "core_radius", "outer_radius", "truncation_width"),
     "burkert": ("mass", "core_radius", "outer_radius", "truncation_width"),
 }  # fmt: skip
@@ -258,7 +258,8 @@ class SpheroidSpec:
     Profiles: ``nfw`` (Navarro, Frenk & White 1997, ApJ 490, 493) from mass (M200) and
     concentration, or from density_scale (rho_s) and scale_radius; ``hernquist``
     (Hernquist 1990, ApJ 356, 359) and ``plummer`` (Plummer 1911, MNRAS 71, 460) from total
-    mass and scale_radius; ``pseudo_isothermal`` and ``burkert`` (Burkert 1995, ApJ 447,
+    mass and scale_radius, with an optional outer_radius (default: 30 half-mass radii) where
+    their exponential cut starts; ``pseudo_isothermal`` and ``burkert`` (Burkert 1995, ApJ 447,
     L25) from the mass inside outer_radius and core_radius. ``truncation_width`` stays None
     unless given (the profile code picks its default).
     """
@@ -321,13 +322,17 @@ class SpheroidSpec:
             raise ModelError(p + "concentration", self.concentration, "must be > 1")
 
     def _check_required(self, p):
-        needed = [k for k in _PROFILE_KEYS[self.profile] if k != "truncation_width"]
+        finite = self.profile in ("hernquist", "plummer")      # the cut is optional
+        optional = ("truncation_width",) + (("outer_radius",) if finite else ())
+        needed = [k for k in _PROFILE_KEYS[self.profile] if k not in optional]
         for key in needed:
             if getattr(self, key) is None:
                 rule = f"required for profile '{self.profile}' (it needs {', '.join(needed)})"
                 raise ModelError(p + key, MISSING, rule)
-        if self.outer_radius is not None and self.outer_radius <= self.core_radius:
-            rule = f"must be larger than core_radius ({self.core_radius:.10g} kpc)"
+        inner, name = ((self.core_radius, "core_radius") if self.core_radius
+                       else (self.scale_radius, "scale_radius"))
+        if self.outer_radius is not None and self.outer_radius <= inner:
+            rule = f"must be larger than {name} ({inner:.10g} kpc)"
             raise ModelError(p + "outer_radius", _shown(self.outer_radius, "kpc"), rule)
 
 

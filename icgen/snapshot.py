@@ -39,7 +39,10 @@ __all__ = ["SCHEMA", "SCHEMA_VERSION", "PRECISIONS", "COMPRESSIONS", "OutputUnit
            "check_format", "describe"]
 
 SCHEMA = "icgen-snapshot"
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
+#: Versions this icgen reads: 1 had the centre of mass moved to the origin, 2 keeps the
+#: model centre there and records the centre of mass.
+READABLE_VERSIONS = (1, 2)
 #: Float dtype per ``precision``; explicitly little-endian, as the schema says.
 PRECISIONS = {"single": "<f4", "double": "<f8"}
 COMPRESSIONS = ("gzip", "lzf")
@@ -52,7 +55,7 @@ FIRST_ID = 1
 # HDF5 chunk of compressed datasets, in particles: 16384 x 3 x 8 B = 384 KiB, under
 # h5py's default 1 MiB chunk cache, so a partial-chunk write does not thrash it.
 H5_CHUNK_ROWS = 16384
-# Particles per read-modify-write step of the centre-of-mass pass (bounds its memory).
+# Particles per read-modify-write step of the velocity pass (bounds its memory).
 PASS_ROWS = 262144
 # Half-mass radii come from a streamed histogram of radii in output length units:
 # 1000 log bins per decade (relative width 0.23 %, then linear interpolation inside
@@ -133,6 +136,7 @@ class _Stream:
     mass_x: np.ndarray = field(default_factory=lambda: np.zeros(3))
     mass_v: np.ndarray = field(default_factory=lambda: np.zeros(3))
     r_hist: np.ndarray = field(default_factory=lambda: np.zeros(_R_EDGES.size + 1))
+    r_max: float = 0.0        # farthest particle from the origin, output unit
     total_out: float = 0.0    # sum of the written masses, output unit
 
 
@@ -144,8 +148,10 @@ class SnapshotWriter:
         with SnapshotWriter(path, spec, plans) as w:   # a temporary file is created
             for chunk in chunks:
                 w.append(chunk)                        # internal units, any order
-            w.finish(curve_radius, curve_speeds)       # centre of mass -> origin, attrs
+            w.finish(curve_radius, curve_speeds)       # net momentum -> 0, attrs
             w.commit()                                 # rename onto ``path``
+
+    Positions are written as sampled: the model's centre is the origin of the file.
 
     Leaving the ``with`` block without ``commit`` (an error, a signal) removes the
     temporary file.
@@ -172,7 +178,7 @@ class SnapshotWriter:
         self.spec = spec
         self.units = OutputUnits.from_spec(spec.output)
         self.dtype = np.dtype(PRECISIONS[precision])
-        self.centre = (np.zeros(3), np.zeros(3))
+        self.bulk = (np.zeros(3), np.zeros(3))
         self.streams = {}
         next_id = FIRST_ID
         for p in plans:
@@ -243,6 +249,11 @@ class SnapshotWriter:
         s.mass += m.sum()
         s.mass_x += m @ np.asarray(chunk.position, dtype=np.float64)
         s.mass_v += m @ np.asarray(chunk.velocity, dtype=np.float64)
+        pos = converted["position"].astype(np.float64)
+        r = np.sqrt(np.einsum("ij,ij->i", pos, pos))
+        if r.size:
+            s.r_max = max(s.r_max, float(r.max()))
+        s.r_hist += _radius_histogram(r, converted["mass"].astype(np.float64))
         g = self._file["particles"][chunk.component]
         for what, out in converted.items():
             g[what][lo:hi] = out
@@ -257,8 +268,13 @@ class SnapshotWriter:
         return (sum(s.mass_x for s in self.streams.values()) / m,
                 sum(s.mass_v for s in self.streams.values()) / m)
 
-    def finish(self, curve_radius, curve_speeds, offset=None, progress=None):
-        """Move the centre of mass to rest at the origin and write all attributes.
+    def finish(self, curve_radius, curve_speeds, momentum=None, progress=None):
+        """Remove the net momentum and write all attributes.
+
+        Positions are never moved: the model's centre stays at the origin, and the sampled
+        centre of mass, a noise-sized distance from it, is recorded in the root attribute
+        ``centre_of_mass``. The net momentum is removed by one uniform velocity shift,
+        recorded in ``velocity_shift``, so that nothing drifts in a live simulation.
 
         Parameters
         ----------
@@ -266,52 +282,41 @@ class SnapshotWriter:
             Radii of the analytic rotation curve, kpc.
         curve_speeds : dict
             "total" and each component name -> (M,) circular speed, km/s.
-        offset : (ndarray (3,), ndarray (3,)), optional
-            Position (kpc) and velocity (km/s) to subtract from every particle, in place
-            and chunk by chunk (memory stays bounded). Default: the mass-weighted mean
-            of the appended chunks, whose last bits depend on how the particles were
-            chunked; pass sums made in a fixed order (the sampler's per-block sums) for
-            files that are bit-identical whatever the chunk size. Zeros: no shift.
+        momentum : (ndarray (3,), ndarray (3,)), optional
+            Centre of mass (kpc) and mass-weighted mean velocity (km/s) of all particles.
+            Default: from the appended chunks, whose last bits depend on how the particles
+            were chunked; pass sums made in a fixed order (the sampler's per-block sums)
+            for files that are bit-identical whatever the chunk size. The velocity is
+            subtracted from every particle, in place and slab by slab (memory stays
+            bounded); zero: no shift.
         progress : callable(n), optional
-            Called with the number of particles done in the centring pass.
+            Called with the number of particles done in the velocity pass.
         """
         for name, s in self.streams.items():
             if s.written != s.count:
                 raise RuntimeError(f"component {name!r}: {s.written} of {s.count} particles written")
-        x0, v0 = self.centre_of_mass() if offset is None else offset
-        self.centre = (np.asarray(x0, float).reshape(3), np.asarray(v0, float).reshape(3))
+        x0, v0 = self.centre_of_mass() if momentum is None else momentum
+        self.bulk = (np.asarray(x0, float).reshape(3), np.asarray(v0, float).reshape(3))
         for name in self.streams:
-            self._centre_pass(name, progress)
+            self._velocity_pass(name, progress)
         self._write_curve(np.asarray(curve_radius, float), curve_speeds)
         self._write_attrs()
         self._finished = True
 
-    def _centre_pass(self, name, progress):
-        """Shift one component in place; sum its written masses and bin its radii."""
+    def _velocity_pass(self, name, progress):
+        """Shift one component's velocities in place; sum its written masses (in fixed
+        slabs, so that the sum does not depend on the sampler's chunking)."""
         s = self.streams[name]
         g = self._file["particles"][name]
-        x0 = self.centre[0] * self.units.length_scale
-        v0 = self.centre[1] * self.units.velocity_scale
-        shift = bool(np.any(x0 != 0) or np.any(v0 != 0))
-        # the component's own centre of mass, after the shift, in output units
-        own = (s.mass_x / s.mass - self.centre[0]) * self.units.length_scale
-        # total_mass is summed here, in fixed PASS_ROWS blocks, so that it does not
-        # depend on the chunking of the sampler
+        v0 = self.bulk[1] * self.units.velocity_scale
+        shift = bool(np.any(v0 != 0))
         s.total_out = 0.0
         for lo in range(0, s.count, PASS_ROWS):
             hi = min(lo + PASS_ROWS, s.count)
-            pos = g["position"][lo:hi].astype(np.float64)
             if shift:
-                pos = _shifted(pos - x0, name, "position", lo, self.dtype)
-                vel = _shifted(g["velocity"][lo:hi].astype(np.float64) - v0, name,
-                               "velocity", lo, self.dtype)
-                g["position"][lo:hi] = pos
-                g["velocity"][lo:hi] = vel
-                pos = pos.astype(np.float64)
-            mass = g["mass"][lo:hi].astype(np.float64)
-            s.total_out += float(mass.sum())
-            d = pos - own
-            s.r_hist += _radius_histogram(np.sqrt(np.einsum("ij,ij->i", d, d)), mass)
+                g["velocity"][lo:hi] = _shifted(g["velocity"][lo:hi].astype(np.float64) - v0,
+                                                name, "velocity", lo, self.dtype)
+            s.total_out += float(g["mass"][lo:hi].astype(np.float64).sum())
             if progress is not None:
                 progress(hi - lo)
 
@@ -339,15 +344,16 @@ class SnapshotWriter:
         a["mass_unit"] = self.units.mass
         a["G"] = self.units.G
         a["seed"] = np.int64(self.spec.seed)
+        a["centre_of_mass"] = (self.bulk[0] * self.units.length_scale).astype("<f8")
+        a["velocity_shift"] = (-self.bulk[1] * self.units.velocity_scale).astype("<f8")
         a["config"] = self.spec.to_toml()
         a["created"] = created.isoformat().replace("+00:00", "Z")
         a["icgen_version"] = __version__
         a["schema"] = SCHEMA       # last: marks the file as complete
 
     def half_mass_radii(self):
-        """Component name -> radius (output length unit) of the sphere about the
-        component's own centre of mass holding half its mass, from the written particles
-        (valid after :meth:`finish`)."""
+        """Component name -> radius (output length unit) of the sphere about the model
+        centre (the origin) holding half its mass, from the written particles."""
         # a single particle is its own centre (the histogram would say "< 1e-6")
         return {name: 0.0 if s.count == 1 else _half_mass_radius(s.r_hist)
                 for name, s in self.streams.items()}
@@ -487,10 +493,10 @@ def _open(path):
         found = "no 'schema' attribute" if schema is MISSING else f"schema attribute {schema!r}"
         raise ModelError(key, MISSING, f"not an icgen snapshot ({found}; expected {SCHEMA!r})")
     version = _plain(f.attrs.get("schema_version", MISSING))
-    if version != SCHEMA_VERSION:
+    if version not in READABLE_VERSIONS:
         f.close()
         raise ModelError(key, MISSING, f"schema_version {version!r} is not one this icgen "
-                                       f"{__version__} reads ({SCHEMA_VERSION})")
+                                       f"{__version__} reads ({', '.join(map(str, READABLE_VERSIONS))})")
     missing = [k for k in _ROOT_KEYS if k not in f.attrs]
     if missing or "particles" not in f:
         f.close()

@@ -34,12 +34,14 @@ def test_grid_respects_symmetry_and_point_mass(default_model):
     up, down = P.evaluate(R, z), P.evaluate(R, -z)
     np.testing.assert_allclose(up[0], down[0], rtol=1e-14)
     np.testing.assert_allclose(up[2], -down[2], rtol=1e-14)
-    # closed-form spheres and point masses are always added exactly (a point mass diverges
-    # at r = 0, a Hernquist force changes direction there)
+    # point masses (closed form, divergent at r = 0) are always added exactly, and points
+    # within the grid's core (where a Hernquist force changes direction) use the exact
+    # sum; further out the grid's interpolation error (< 1e-5, the bar above) applies
     m = model_from_components({
         "bh": {"kind": "point_mass", "mass": "1e8 Msun"},
         "b": {"kind": "bulge", "profile": "hernquist", "mass": "1e10 Msun",
               "scale_radius": "1 kpc", "particles": 10}})
     pts = np.array([1e-4, 1e-2, 1.0])
     e_phi, e_f = _errors(m.potential, pts, 0.3 * pts)
-    assert e_phi.max() < 1e-14 and e_f.max() < 1e-14
+    assert e_phi[:2].max() < 1e-14 and e_f[:2].max() < 1e-14
+    assert e_phi[2] < 1e-5 and e_f[2] < 1e-5

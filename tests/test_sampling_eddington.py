@@ -9,9 +9,27 @@ from icgen.sampling import eddington, realize
 from icgen.sampling import spheroid_velocities as sv
 from icgen.units import G
 
-M, A = 1e10, 1.0
+# A far outer cut: the uncut Hernquist law holds all but 4e-4 of its mass inside 5000 a
+# (Hernquist 1990, eq. 3), below every tolerance here; the default cut (96.6 a) is tested in
+# test_potential_spheroids.py.
+A = 1.0
+
+
+def uncut_mass(profile):
+    """M of the uncut law whose density the cut model has inside r_t: 2 pi rho0 a^3
+    (Hernquist 1990, eq. 2) or 4 pi rho0 b^3 / 3 (Plummer 1911). The model's mass, 1e10
+    Msun, includes the cut, so M = 1e10 (1 + 1.6e-4) for Hernquist with this far cut."""
+    from icgen.config import SpheroidSpec
+    from icgen.profiles.spheroid import finite_law
+    spec = SpheroidSpec(name="b", kind="bulge", profile=profile, mass=1e10, scale_radius=A,
+                        outer_radius=5000.0)
+    return {"hernquist": 2 * np.pi, "plummer": 4 * np.pi / 3}[profile] * finite_law(spec).rho0 * A**3
+
+
+M = uncut_mass("hernquist")
+M_PLUMMER = uncut_mass("plummer")
 HERNQUIST = {"kind": "bulge", "profile": "hernquist", "mass": "1e10 Msun",
-             "scale_radius": "1 kpc", "particles": 1000}
+             "scale_radius": "1 kpc", "outer_radius": "5000 kpc", "particles": 1000}
 PLUMMER = {**HERNQUIST, "profile": "plummer"}
 
 
@@ -67,7 +85,7 @@ def test_plummer_df_matches_closed_form():
     # (Binney & Tremaine 2008, eq. 4.83; equation number from memory).
     model = model_from_components({"b": PLUMMER})
     table, f = df_on_grid(model, "b", 100)
-    exact = 24 * np.sqrt(2) / (7 * np.pi**3) * A**2 / (G**5 * M**4) * table.psi**3.5
+    exact = 24 * np.sqrt(2) / (7 * np.pi**3) * A**2 / (G**5 * M_PLUMMER**4) * table.psi**3.5
     sel = (table.r > 0.05) & (table.r < 100)
     np.testing.assert_allclose(f[sel], exact[sel], rtol=1e-3)
 

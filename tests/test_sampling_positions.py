@@ -132,16 +132,22 @@ def test_tapered_disk_radii_follow_the_tapered_surface_density():
 
 def test_hernquist_density_profile_chi_square():
     # Counts in radial shells vs Hernquist (1990, ApJ 356, 359) eq. 3, M(<r) = M r^2/(r+a)^2,
-    # renormalised to the sampled extent 1e4 a; chi-square with multinomial errors.
+    # with M the uncut law's mass, inside the outer cut; the last bin holds the rest (the
+    # cut); chi-square with multinomial errors.
     model = model_from_components({"b": {
         "kind": "bulge", "profile": "hernquist", "mass": "1e10 Msun",
         "scale_radius": "1 kpc", "particles": 100_000}})
+    b = model.components["b"]
+    m_full = 2 * np.pi * b.rho0       # Hernquist (1990) eq. 2 with a = 1 kpc
     r = np.linalg.norm(sampling.particles(model, "b", 0, 100_000).position, axis=1)
-    edges = np.concatenate([[0], np.geomspace(0.01, 100, 25), [1e4]])
-    frac = np.diff(edges**2 / (edges + 1) ** 2)
-    counts = np.histogram(r, edges)[0]
-    assert stats.chisquare(counts, frac / frac.sum() * r.size).pvalue > 1e-3
-    assert r.max() <= 1e4 * 1.0                  # sampled out to the profile extent only
+    edges = np.concatenate([[0], np.geomspace(0.01, b.r_t, 25)])
+    frac = np.diff(edges**2 / (edges + 1) ** 2) * m_full / b.total_mass
+    frac = np.append(frac, 1 - frac.sum())
+    counts = np.histogram(r, np.append(edges, np.inf))[0]
+    assert stats.chisquare(counts, frac * r.size).pvalue > 1e-3
+    # sampled out to the profile extent only, and never beyond 100 median radii
+    assert r.max() <= b.extent
+    assert r.max() < 100 * np.median(r)
 
 
 def test_default_model_particle_masses_follow_the_heating_rule():

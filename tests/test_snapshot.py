@@ -28,7 +28,7 @@ AU_M = 149_597_870_700.0
 PC_M = AU_M * 648_000.0 / math.pi
 
 ROOT_KEYS = {"schema", "schema_version", "length_unit", "velocity_unit", "mass_unit", "G",
-             "seed", "config", "created", "icgen_version"}
+             "seed", "config", "created", "icgen_version", "centre_of_mass", "velocity_shift"}
 
 
 def make_spec(length="kpc", velocity="km/s", mass="1e10 Msun", seed=3):
@@ -72,11 +72,11 @@ def curve():
     return r, {"total": np.full(20, 200.0), "halo": np.full(20, 150.0), "disk": np.full(20, 130.0)}
 
 
-def write(path, spec, parts, precision="double", compress=None, size=700, offset=None):
+def write(path, spec, parts, precision="double", compress=None, size=700, momentum=None):
     with SnapshotWriter(path, spec, PLANS, precision, compress) as w:
         for chunk in chunks_of(parts, size, np.random.default_rng(1)):
             w.append(chunk)
-        w.finish(*curve(), offset=offset)
+        w.finish(*curve(), momentum=momentum)
         w.commit()
     return w
 
@@ -88,7 +88,7 @@ def test_round_trip_stores_exactly_what_it_is_given(tmp_path, precision, compres
     parts = invented_particles()
     path = tmp_path / "snap.h5"
     no_shift = (np.zeros(3), np.zeros(3))
-    w = write(path, spec, parts, precision, compress, offset=no_shift)
+    w = write(path, spec, parts, precision, compress, momentum=no_shift)
     dtype = {"double": np.float64, "single": np.float32}[precision]
     # astropy's factor for 1e10 Msun is 1e-10 to the last bit or two
     scale = w.units.mass_scale
@@ -140,7 +140,7 @@ def test_root_and_group_attributes_follow_the_schema(tmp_path):
     write(path, spec, parts)
     with h5py.File(path, "r") as f:
         assert set(f.attrs) == ROOT_KEYS
-        assert f.attrs["schema"] == "icgen-snapshot" and f.attrs["schema_version"] == 1
+        assert f.attrs["schema"] == "icgen-snapshot" and f.attrs["schema_version"] == 2
         assert f.attrs["seed"] == 3
         # ISO 8601 in UTC (schema): parseable, with a zero offset
         import datetime
@@ -159,32 +159,36 @@ def test_root_and_group_attributes_follow_the_schema(tmp_path):
     assert spec_from_toml_text(read_snapshot(path).config) == spec
 
 
-def test_centring_pass_subtracts_the_given_offset(tmp_path):
+def test_positions_stay_and_the_net_momentum_is_removed(tmp_path):
+    # The model centre stays the origin of the file: positions as given; one uniform
+    # velocity shift removes the net momentum; both recorded in the root attributes.
     spec = make_spec()
     parts = invented_particles()
     path = tmp_path / "snap.h5"
-    w = write(path, spec, parts, offset=None)      # the writer's own mass-weighted mean
+    w = write(path, spec, parts, momentum=None)      # the writer's own mass-weighted means
     m_all = np.concatenate([p[2] for p in parts.values()])
     x0 = np.concatenate([p[0] for p in parts.values()]).T @ m_all / m_all.sum()
     v0 = np.concatenate([p[1] for p in parts.values()]).T @ m_all / m_all.sum()
     # the writer summed chunk by chunk in another order: float64 rounding, ~1e-13 relative
-    np.testing.assert_allclose(w.centre[0], x0, rtol=1e-12, atol=1e-12)
-    np.testing.assert_allclose(w.centre[1], v0, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(w.bulk[0], x0, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(w.bulk[1], v0, rtol=1e-12, atol=1e-12)
     snap = read_snapshot(path)
     for name, (x, v, m) in parts.items():
-        np.testing.assert_array_equal(snap.components[name]["position"], x - w.centre[0])
-        np.testing.assert_array_equal(snap.components[name]["velocity"], v - w.centre[1])
+        np.testing.assert_array_equal(snap.components[name]["position"], x)
+        np.testing.assert_array_equal(snap.components[name]["velocity"], v - w.bulk[1])
+    np.testing.assert_array_equal(snap.attrs["centre_of_mass"], w.bulk[0])
+    np.testing.assert_array_equal(snap.attrs["velocity_shift"], -w.bulk[1])
     mass = np.concatenate([c["mass"] for c in snap.components.values()])
-    pos = np.concatenate([c["position"] for c in snap.components.values()])
-    # the new centre of mass is zero up to float64 rounding of coordinates ~50 kpc
-    assert np.all(np.abs(pos.T @ mass / mass.sum()) < 1e-12)
+    vel = np.concatenate([c["velocity"] for c in snap.components.values()])
+    # the net momentum is zero up to float64 rounding of velocities ~200 km/s
+    assert np.all(np.abs(vel.T @ mass / mass.sum()) < 1e-12)
 
 
 def test_unit_conversion_and_G_in_output_units(tmp_path):
     spec = make_spec(length="pc", velocity="m/s", mass="Msun")
     parts = invented_particles()
     path = tmp_path / "snap.h5"
-    write(path, spec, parts, offset=(np.zeros(3), np.zeros(3)))
+    write(path, spec, parts, momentum=(np.zeros(3), np.zeros(3)))
     snap = read_snapshot(path, quantity=True)
     for name, (x, v, m) in parts.items():
         c = snap.components[name]
@@ -265,9 +269,9 @@ def test_reader_rejects_other_files_with_one_line_errors(tmp_path):
     newer = tmp_path / "newer.h5"
     write(newer, make_spec(), invented_particles())
     with h5py.File(newer, "a") as f:
-        f.attrs["schema_version"] = 2
+        f.attrs["schema_version"] = 3
     cases = [(tmp_path / "missing.h5", "no such file"), (text, "not an HDF5 file"),
-             (other, "not an icgen snapshot"), (newer, "schema_version 2"),
+             (other, "not an icgen snapshot"), (newer, "schema_version 3"),
              (tmp_path, "is a folder")]
     for path, words in cases:
         with pytest.raises(ModelError, match=words) as exc:
@@ -305,7 +309,7 @@ def test_gas_internal_energy_is_stored_in_velocity_unit_squared(tmp_path):
     with SnapshotWriter(tmp_path / "gas.h5", spec, plans) as w:
         w.append(chunk)
         w.finish(np.ones(2), {"total": np.ones(2), "gas": np.ones(2)},
-                 offset=(np.zeros(3), np.zeros(3)))
+                 momentum=(np.zeros(3), np.zeros(3)))
         w.commit()
     snap = read_snapshot(tmp_path / "gas.h5", quantity=True)
     got = snap.components["gas"]["internal_energy"]

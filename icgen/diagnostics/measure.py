@@ -15,6 +15,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
+from ..frame import shrinking_sphere_centre  # noqa: F401  (re-exported)
 from ..units import G
 
 
@@ -106,46 +107,7 @@ def midplane_v2(position, mass, radii, softening, n_azimuth=16, max_sources=None
     return G * radii * s1, G * radii * np.sqrt(var)
 
 
-# ------------------------------------------------------------------ centre and coordinates
-
-# Shrinking-sphere centre (Power et al. 2003, MNRAS 338, 14, sec. 2.5): each step keeps the
-# particles inside a sphere 2.5 % smaller than the last, about their centre of mass, and
-# stops when fewer than SHRINK_MIN_PARTICLES (or 1e-3 of them all) remain; the centre
-# is then good to about r_final / sqrt(n_final). The first sphere is centred on the
-# coordinate-wise median and holds SHRINK_START_FACTOR times that many particles (at
-# least 1 % of them): starting from the whole galaxy costs ~100 passes over nearly all
-# particles (5 s at 1e6), and the median of a centrally concentrated galaxy is already
-# within a few tenths of a kpc of its centre, well inside that first sphere.
-SHRINK_FACTOR = 0.975
-SHRINK_MIN_PARTICLES = 1000
-SHRINK_START_FACTOR = 50
-
-
-def shrinking_sphere_centre(position, mass):
-    """Density centre (3,) of particles by the shrinking-sphere method (Power et al. 2003).
-
-    The centre of mass is a poor centre for a sampled galaxy: the few halo and bulge
-    particles at hundreds of kpc move it by ~ r_rms / sqrt(N) (a few tenths of a kpc
-    at N = 1e5), while the dense centre is located to ~0.01 kpc.
-    """
-    n = position.shape[0]
-    centre = np.median(position, axis=0)
-    d = position - centre
-    d2 = np.einsum("ij,ij->i", d, d)
-    floor = max(SHRINK_MIN_PARTICLES, int(1e-3 * n))
-    start = min(n, max(SHRINK_START_FACTOR * floor, n // 100))
-    radius = float(np.sqrt(np.partition(d2, start - 1)[start - 1])) * (1 + 1e-12)
-    pos, m = position, mass
-    while True:
-        inside = d2 <= radius * radius
-        if np.count_nonzero(inside) < floor:
-            return centre
-        pos, m = pos[inside], m[inside]
-        centre = m @ pos / m.sum()
-        d = pos - centre
-        d2 = np.einsum("ij,ij->i", d, d)
-        radius *= SHRINK_FACTOR
-
+# ------------------------------------------------------------------ coordinates
 
 def cylindrical(position, velocity):
     """(R, z, v_R, v_phi, v_z) of particles (km/s, kpc); v_R = v_phi = 0 on the axis."""

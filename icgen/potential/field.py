@@ -18,7 +18,6 @@ import math
 import numpy as np
 from numba import njit
 
-from ..units import G
 from . import kernels
 from .grid import locate, spline_force
 
@@ -47,17 +46,11 @@ def _pack(usable, grid, table, spheres, layers, inline):
 def force_field(potential):
     """The total force of ``potential`` (a GalaxyPotential) as a flat tuple for
     :func:`force`. Units: kpc, (km/s)^2/kpc."""
-    terms = [(code, G * mass, a) for n in potential._analytic
-             for code, mass, a in potential.components[n].analytic_terms()]
+    terms = potential.sphere_terms()
     spheres = (np.array([t[0] for t in terms], np.int64), np.array([t[1] for t in terms]),
                np.array([t[2] for t in terms]))
-    gridded = [potential.components[n] for n in potential._gridded_names]
-    stellar = [c for c in gridded if c.kind == "disk"]
-    layers = np.array([[4 * np.pi * G * c.thin_layer_params()[0], *c.thin_layer_params()[1:]]
-                       for c in stellar]).reshape(-1, 6)
-    inline = not any(c.kind == "gas_disk" for c in gridded)
-    return _pack(True, potential.grid, potential._table(potential._gridded_names), spheres,
-                 layers, inline)
+    return _pack(True, potential.grid, potential.smooth_table(), spheres,
+                 potential.stellar_layers(), not potential.has_gas())
 
 
 #: A field with no answer anywhere: every force then comes from the caller's evaluate.

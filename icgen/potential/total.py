@@ -46,20 +46,47 @@ class GalaxyPotential:
             self.tables[c.name] = solve(dens, self.r_grid, l_c,
                                         4 if spherical else defaults.ANGULAR_NODES, G)
         self._table_cache = {}   # sum of the tables of a set of components, made on first use
-        # Closed-form spheres (and point masses, singular at r = 0) are always evaluated
-        # exactly; the grid holds disks and numerically tabulated spheroids.
-        self._analytic = [c.name for c in components if c.analytic_terms()]
-        self._gridded_names = [n for n in self.components if n not in self._analytic]
-        vertical = [c.z_d for c in components if c.kind in DISK_KINDS]
+        # Two kinds of pieces: closed-form spheres (and point masses, singular at r = 0),
+        # always evaluated exactly, and the smooth rest (disk layers, multipole tables),
+        # which the fast path interpolates on a grid.
+        self.smooth_names = [c.name for c in components
+                             if c.name in self.tables or c.kind in DISK_KINDS]
         self.grid = None
-        if self._gridded_names and grid:
-            g_scales = [self.components[n].scale for n in self._gridded_names]
-            s = min(vertical) if vertical else 0.1 * min(g_scales)
-            g_ext = max(self.components[n].extent for n in self._gridded_names)
-            self.grid = PotentialGrid(lambda R, z: self._exact(R, z, self._gridded_names),
-                                      s, g_ext)
+        if self.smooth_names and grid:
+            smooth = [self.components[n] for n in self.smooth_names]
+            vertical = [c.z_d for c in smooth if c.kind in DISK_KINDS]
+            s = min(vertical) if vertical else 0.1 * min(c.scale for c in smooth)
+            self.grid = PotentialGrid(lambda R, z: self._smooth(R, z, self.smooth_names),
+                                      s, max(c.extent for c in smooth))
         if grid:
             self._build_midplane()
+
+    # -- the pieces -------------------------------------------------------------------
+    def sphere_terms(self, names=None):
+        """Closed-form spheres [(code, G M, a)] of the named components (all: None), in
+        component order."""
+        names = list(self.components) if names is None else names
+        return [(code, G * mass, a) for n in names
+                for code, mass, a in self.components[n].analytic_terms()]
+
+    def stellar_layers(self, names=None):
+        """Dehnen & Binney thin-layer parameters (4 pi G Sigma0, R_d, R_t, w_t, z_d, code) of
+        the named stellar disks, in component order, shape (k, 6)."""
+        names = self.smooth_names if names is None else names
+        rows = [self.components[n].thin_layer_params() for n in names
+                if self.components[n].kind == "disk"]
+        return np.array([[4 * np.pi * G * p[0], *p[1:]] for p in rows]).reshape(-1, 6)
+
+    def has_gas(self):
+        return any(c.kind == "gas_disk" for c in self.components.values())
+
+    def smooth_table(self, names=None):
+        """Sum of the multipole tables of the named components (all smooth: None), or None."""
+        names = self.smooth_names if names is None else names
+        key = tuple(sorted(n for n in names if n in self.tables))
+        if key not in self._table_cache:
+            self._table_cache[key] = _sum({n: self.tables[n] for n in key})
+        return self._table_cache[key]
 
     # -- evaluation -------------------------------------------------------------------
     def evaluate(self, R, z, component=None, exact=False):
@@ -80,33 +107,22 @@ class GalaxyPotential:
         return tuple(a.reshape(shape) for a in out)
 
     def _gridded(self, Rf, zf):
+        """Grid inside, exact smooth pieces outside it, then the closed-form spheres; the
+        order of the sums is that of potential/field.py's ``force``."""
         phi, f_r, f_z, outside = self.grid.evaluate(Rf, zf)
         if outside.any():
-            far = self._exact(Rf[outside], zf[outside], self._gridded_names)
+            far = self._smooth(Rf[outside], zf[outside], self.smooth_names)
             for arr, val in zip((phi, f_r, f_z), far):
                 arr[outside] = val
-        self._add_closed_forms_and_table(Rf, zf, self._analytic, phi, f_r, f_z)
+        self._add_spheres(Rf, zf, list(self.components), phi, f_r, f_z)
         return phi, f_r, f_z
 
-    def _add_closed_forms_and_table(self, Rf, zf, names, phi, f_r, f_z):
-        """Add closed-form spheres and the summed tables of the named components."""
-        for name in names:
-            for code, mass, a in self.components[name].analytic_terms():
-                kernels.add_spherical(Rf, zf, code, G * mass, a, phi, f_r, f_z)
-        table = self._table(names)
-        if table is not None:
-            kernels.add_multipole(Rf, zf, table.lnr0, table.h, table.r, *table.kernel_arrays(),
-                                  phi, f_r, f_z)
+    def _add_spheres(self, Rf, zf, names, phi, f_r, f_z):
+        for code, gm, a in self.sphere_terms(names):
+            kernels.add_spherical(Rf, zf, code, gm, a, phi, f_r, f_z)
 
-    def _table(self, names):
-        """Sum of the multipole tables of the named components (None if they have none)."""
-        key = tuple(sorted(n for n in names if n in self.tables))
-        if key not in self._table_cache:
-            self._table_cache[key] = _sum({n: self.tables[n] for n in key})
-        return self._table_cache[key]
-
-    def _exact(self, Rf, zf, names):
-        """Sum of the named components' exact pieces at flat arrays."""
+    def _smooth(self, Rf, zf, names):
+        """Layers of the named disks (component order), then their summed tables."""
         Rf, zf = np.ascontiguousarray(Rf, dtype=float), np.ascontiguousarray(zf, dtype=float)
         phi, f_r, f_z = np.zeros_like(Rf), np.zeros_like(Rf), np.zeros_like(Rf)
         for name in names:
@@ -117,7 +133,17 @@ class GalaxyPotential:
                 s0, r_d, r_t, w_t, z_d, code = c.thin_layer_params()
                 kernels.add_thin_layer(Rf, zf, 4 * np.pi * G * s0, r_d, r_t, w_t, z_d,
                                        int(code), phi, f_r, f_z)
-        self._add_closed_forms_and_table(Rf, zf, names, phi, f_r, f_z)
+        table = self.smooth_table(names)
+        if table is not None:
+            kernels.add_multipole(Rf, zf, table.lnr0, table.h, table.r, *table.kernel_arrays(),
+                                  phi, f_r, f_z)
+        return phi, f_r, f_z
+
+    def _exact(self, Rf, zf, names):
+        """Sum of the named components' exact pieces at flat arrays."""
+        phi, f_r, f_z = self._smooth(Rf, zf, [n for n in names if n in self.smooth_names])
+        self._add_spheres(np.ascontiguousarray(Rf, dtype=float),
+                          np.ascontiguousarray(zf, dtype=float), names, phi, f_r, f_z)
         return phi, f_r, f_z
 
     def force_field(self):

@@ -4,11 +4,11 @@ Typical use::
 
     from icgen import sampling
     sampling.plan(model)                          # counts and particle masses
-    parts = sampling.sample(model)                # small N: all in memory, COM removed
+    parts = sampling.sample(model)                # small N: all in memory, no net momentum
     report = sampling.SamplingReport()
     for chunk in sampling.iter_chunks(model, report=report):   # large N: streamed
         writer.append(chunk)
-    x0, v0 = report.center_of_mass()              # subtract afterwards
+    x0, v0 = report.center_of_mass()              # subtract v0 afterwards
 
 Particles are bit-identical for a given model seed whatever the chunk size or the number
 of numba threads. Options: ``quiet_start`` (scrambled Sobol points) and ``mirror``

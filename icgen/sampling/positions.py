@@ -8,19 +8,13 @@ so that the quiet start (Sobol points) and pseudo-random draws go through the sa
   With an outer taper the cumulative mass is tabulated and inverted (RadialCdf).
 - Disk, height: sech^2 (Spitzer 1942, ApJ 95, 329): z = z_d artanh(2u - 1);
   exponential: z = z_d ln(2u) for u < 1/2, -z_d ln(2(1 - u)) otherwise.
-- Spheroids: Hernquist (1990, ApJ 356, 359, eq. 3 inverted) r = a sqrt(v)/(1 - sqrt(v));
-  Plummer (1911) r = b v^(1/3) / sqrt(1 - v^(2/3)); any other profile by a tabulated
-  M(<r). Directions isotropic: cos(theta) = 2u - 1, phi = 2 pi u.
-
-Every spheroid is sampled out to its ``extent`` (where the profile says the density is
-negligible: 1e4 a for Hernquist, r_t + 40 r_d beyond an exponential cut), with
-v = u M(<extent)/M, so no particle is placed at absurd radii; the particle masses still add
-up to the total mass.
+- Spheroids: a tabulated M(<r) of the cut profile (profiles/spheroid.py), out to its
+  ``extent`` r_t + 40 r_d, where the cut leaves < 1e-13 of rho(r_t). Directions isotropic:
+  cos(theta) = 2u - 1, phi = 2 pi u.
 """
 import numpy as np
 from scipy.special import lambertw
 
-from ..profiles.spheroid import Hernquist, Plummer
 
 # Log-radius grid of tabulated cumulative masses. Linear interpolation of ln r against
 # ln M (inner half) or ln(1 - M) (outer half) errs by ~h^2/8 times the curvature of
@@ -146,24 +140,12 @@ class SpheroidPositions:
     def __init__(self, comp):
         self.comp = comp
         self.r_max = comp.extent
-        self.closed_form = isinstance(comp, (Hernquist, Plummer))
-        if self.closed_form:
-            self.u_max = float(comp.enclosed_mass(comp.extent) / comp.total_mass)
-            self.cdf = None
-        else:
-            self.cdf = RadialCdf(lambda r: 4 * np.pi * r**3 * comp.density_r(r),
-                                 CDF_INNER_FRACTION * comp.scale, comp.extent)
+        self.cdf = RadialCdf(lambda r: 4 * np.pi * r**3 * comp.density_r(r),
+                             CDF_INNER_FRACTION * comp.scale, comp.extent)
 
     def radius(self, u):
         """r (kpc) for deviates u in (0, 1)."""
-        if self.cdf is not None:
-            return self.cdf.radius(u)
-        v = np.asarray(u) * self.u_max
-        if isinstance(self.comp, Hernquist):
-            s = np.sqrt(v)
-            return self.comp.scale * s / (1.0 - s)
-        c = np.cbrt(v)
-        return self.comp.scale * c / np.sqrt((1.0 - c) * (1.0 + c))
+        return self.cdf.radius(u)
 
     def sample(self, u):
         """(r, unit vectors (n, 3)) from deviates u of shape (n, >= 3)."""

@@ -323,13 +323,11 @@ def particles(model, component, start, stop, quiet_start=None, mirror=None):
 
 
 def sample(model, quiet_start=None, mirror=None, report=None):
-    """All particles in memory, centre of mass moved to rest at the origin.
+    """All particles in memory, with zero net momentum.
 
-    The offset is that of the whole realisation, far-out particles included: for a
-    Hernquist sphere sampled to 1e4 a with N particles it is ~a sqrt(2e4/N) (0.2 a for
-    N = 4e5), so profiles measured about the origin of the result are smeared by it;
-    ``mirror=True`` makes it vanish, and ``iter_chunks``/``particles`` return the
-    unshifted realisation.
+    Positions are as sampled: the model's centre is the origin (the sampled centre of mass
+    sits a noise-sized distance from it, ``report.center_of_mass()``); the mass-weighted
+    mean velocity is subtracted from every particle, as ``icgen build`` does.
 
     Returns
     -------
@@ -340,10 +338,10 @@ def sample(model, quiet_start=None, mirror=None, report=None):
     parts = {}
     for chunk in iter_chunks(model, 1 << 20, quiet_start, mirror, report):
         parts.setdefault(chunk.component, []).append(chunk)
-    x0, v0 = report.center_of_mass()
+    _, v0 = report.center_of_mass()
     out = {}
     for name, chunks in parts.items():
-        out[name] = {"position": np.concatenate([c.position for c in chunks]) - x0,
+        out[name] = {"position": np.concatenate([c.position for c in chunks]),
                      "velocity": np.concatenate([c.velocity for c in chunks]) - v0,
                      "mass": np.concatenate([c.mass for c in chunks])}
         if chunks[0].internal_energy is not None:

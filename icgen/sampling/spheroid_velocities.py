@@ -28,7 +28,6 @@ from scipy.integrate import cumulative_simpson
 from scipy.special import gammainc
 
 from ..errors import ModelError
-from ..profiles.spheroid import Hernquist, Plummer, TruncatedSpheroid
 from ..units import G
 from . import eddington
 from .positions import isotropic_directions
@@ -56,7 +55,11 @@ NEGATIVE_TOLERANCE = 1e-3
 # The sign of the DF is checked for orbits outside the sphere holding this fraction of the
 # component's mass: deeper in, the potential solver's innermost node (a uniform core) and
 # the r^2 cancellation in d2rho/dPsi2 make the values unreliable, and they concern fewer
-# than one particle in 1e6.
+# than one particle in 1e6. Orbits turning beyond the outer radius r_t are not checked
+# either: there the exponential cut makes the density fall steeply, and for radially
+# anisotropic (Osipkov-Merritt) models f(Q) dips below zero for orbits turning just beyond
+# r_t (-1.6 % to -2.5 % of the cancellation scale at the first node past r_t of a Hernquist
+# sphere, measured); such values are set to 0.
 CHECK_MASS_FRACTION = 1e-6
 
 
@@ -116,37 +119,16 @@ def radial_table(potential, r_lo, r_hi, per_decade=RADIAL_POINTS_PER_DECADE):
     return RadialTable(x, -phi, psi_x, -psi_x - 4 * np.pi * G * r * r * rho)
 
 
-def _law_slopes(law, x):
-    """First two derivatives of ln rho in ln x for the inner laws of TruncatedSpheroid."""
-    if law == "nfw":             # rho ~ 1/(x (1+x)^2)
-        return -1 - 2 * x / (1 + x), -2 * x / (1 + x) ** 2
-    y = x * x
-    if law == "pseudo_isothermal":   # rho ~ 1/(1 + x^2)
-        return -2 * y / (1 + y), -4 * y / (1 + y) ** 2
-    if law == "burkert":         # rho ~ 1/((1+x)(1+x^2))
-        return -x / (1 + x) - 2 * y / (1 + y), -x / (1 + x) ** 2 - 4 * y / (1 + y) ** 2
-    return None
-
-
 def log_slopes(comp, r, step=1e-3):
     """(dln rho/dln r, d2ln rho/dln r^2) of a spherical component at radii r (kpc).
 
-    Closed forms for the known profiles: the second derivative of rho(Psi) cancels to
-    relative order r^2 in a core, so finite differences (round-off ~1e-16/step^2) would
-    ruin the DF at high energies. Other profiles fall back to centred differences of ln rho.
+    Closed forms where the profile has them (``comp.log_slopes``): the second derivative of
+    rho(Psi) cancels to relative order r^2 in a core, so finite differences (round-off
+    ~1e-16/step^2) would ruin the DF at high energies. Otherwise centred differences of
+    ln rho.
     """
-    if isinstance(comp, Hernquist):              # rho ~ 1/(x (1+x)^3)
-        x = r / comp.scale
-        return -1 - 3 * x / (1 + x), -3 * x / (1 + x) ** 2
-    if isinstance(comp, Plummer):                # rho ~ (1 + x^2)^-5/2
-        y = (r / comp.scale) ** 2
-        return -5 * y / (1 + y), -10 * y / (1 + y) ** 2
-    if isinstance(comp, TruncatedSpheroid) and _law_slopes(comp.law, 1.0) is not None:
-        s1, s2 = _law_slopes(comp.law, r / comp.r_s)
-        # exponential cut (Kazantzidis et al. 2004): ln rho = eps ln r - r/r_d + const
-        outside = r > comp.r_t
-        return (np.where(outside, comp.eps - r / comp.r_d, s1),
-                np.where(outside, -r / comp.r_d, s2))
+    if hasattr(comp, "log_slopes"):
+        return comp.log_slopes(r)
     with np.errstate(divide="ignore"):
         lp, l0, lm = (np.log(comp.density_r(r * np.exp(k * step))) for k in (1, 0, -1))
     return (lp - lm) / (2 * step), (lp - 2 * l0 + lm) / step**2
@@ -210,19 +192,30 @@ class SpheroidVelocities:
             self.cdf = maxwellian_table(table, self.sigma2)
             self.f = None
             return
-        rho = comp.density_r(r)
-        s1, s2 = log_slopes(comp, r)
-        if np.isfinite(self.r_a):
-            # Osipkov-Merritt: rho_Q = (1 + r^2/r_a^2) rho
-            y = (r / self.r_a) ** 2
-            s1, s2 = s1 + 2 * y / (1 + y), s2 + 4 * y / (1 + y) ** 2
-            rho = rho * (1 + y)
-        f, scale = eddington.eddington_df(table.psi, table.psi_x, table.psi_xx,
-                                          rho * s1, rho * (s2 + s1 * s1))
-        checked = (r >= _mass_radius(comp, CHECK_MASS_FRACTION)) & (r <= comp.extent)
+        rho_x, rho_xx = self._tracer_derivatives(comp.density_r(r), *log_slopes(comp, r), r)
+        jump = None
+        if hasattr(comp, "slope_jump"):
+            r_j, s1, s2_in, s2_out = comp.slope_jump()
+            rho_j = float(comp.density_r(r_j))
+            rx, rxx_in = self._tracer_derivatives(rho_j, s1, s2_in, r_j)
+            _, rxx_out = self._tracer_derivatives(rho_j, s1, s2_out, r_j)
+            jump = (np.log(r_j), rx, rxx_in, rxx_out)
+        f, scale = eddington.eddington_df(table.x, table.psi, table.psi_x, table.psi_xx,
+                                          rho_x, rho_xx, jump)
+        checked = (r >= _mass_radius(comp, CHECK_MASS_FRACTION)) & (r <= comp.r_t)
         self._check(f, scale, checked)
         self.f = np.maximum(f, 0.0)
         self.cdf = eddington.speed_table(table.psi, self.f)
+
+    def _tracer_derivatives(self, rho, s1, s2, r):
+        """(d rho/d ln r, d2 rho/d ln r^2) of the density the DF inverts, from ln rho's
+        slopes s1, s2: rho itself, or with an anisotropy radius the Osipkov-Merritt
+        rho_Q = (1 + r^2/r_a^2) rho."""
+        if np.isfinite(self.r_a):
+            y = (r / self.r_a) ** 2
+            s1, s2 = s1 + 2 * y / (1 + y), s2 + 4 * y / (1 + y) ** 2
+            rho = rho * (1 + y)
+        return rho * s1, rho * (s2 + s1 * s1)
 
     def _check(self, f, scale, inside):
         bad = inside & (f < -NEGATIVE_TOLERANCE * scale)

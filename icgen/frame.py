@@ -1,0 +1,128 @@
+"""The galaxy's frame: where a snapshot's galaxy is centred and how fast it moves.
+
+icgen writes the model's centre at the origin, at rest. A snapshot may still hold a galaxy
+elsewhere: a file moved or evolved by other software, or a galaxy deliberately displaced.
+Every command that measures particles against the model (check, drift, mock) finds the
+frame one way, here, and measures about it:
+
+- position: the shrinking-sphere density centre (Power et al. 2003, MNRAS 338, 14,
+  sect. 2.5) of all particles (at most ``MAX_PARTICLES``, a seeded random subset);
+- velocity: the mass-weighted mean velocity of the ``CENTRE_MASS_FRACTION`` of the mass
+  nearest that centre.
+
+For an icgen snapshot both are a noise-sized distance from zero (measured on the default
+model: ~0.02 kpc and ~1 km/s); for a displaced galaxy they are its displacement and motion.
+Units: kpc, km/s, Msun.
+"""
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["Frame", "find_frame", "shrinking_sphere_centre", "MAX_PARTICLES",
+           "CENTRE_MASS_FRACTION"]
+
+#: At most this many particles (a seeded random subset) locate the frame: the centre is
+#: then good to ~ r_final / sqrt(n_final) whatever the file's size, and memory stays flat.
+MAX_PARTICLES = 2_000_000
+#: Mass fraction around the density centre whose mean velocity is the frame's velocity.
+CENTRE_MASS_FRACTION = 0.05
+
+# Shrinking sphere (Power et al. 2003): each step keeps the particles inside a sphere 2.5 %
+# smaller than the last, about their centre of mass, and stops when fewer than
+# SHRINK_MIN_PARTICLES (or 1e-3 of them all) remain; the centre is then good to about
+# r_final / sqrt(n_final). The first sphere is centred on the coordinate-wise median and
+# holds SHRINK_START_FACTOR times that many particles (at least 1 % of them): starting from
+# the whole galaxy costs ~100 passes over nearly all particles (5 s at 1e6), and the median
+# of a centrally concentrated galaxy is already within a few tenths of a kpc of its centre,
+# well inside that first sphere.
+SHRINK_FACTOR = 0.975
+SHRINK_MIN_PARTICLES = 1000
+SHRINK_START_FACTOR = 50
+
+
+def shrinking_sphere_centre(position, mass):
+    """Density centre (3,) of particles (position (N, 3), mass (N,)) by the shrinking-sphere
+    method of Power et al. (2003).
+
+    The centre of mass is a poor centre for a sampled galaxy: the few halo and bulge
+    particles at hundreds of kpc move it by ~ r_rms / sqrt(N) (a few tenths of a kpc at
+    N = 1e5), while the dense centre is located to ~0.01 kpc.
+    """
+    n = position.shape[0]
+    centre = np.median(position, axis=0)
+    d = position - centre
+    d2 = np.einsum("ij,ij->i", d, d)
+    floor = max(SHRINK_MIN_PARTICLES, int(1e-3 * n))
+    start = min(n, max(SHRINK_START_FACTOR * floor, n // 100))
+    radius = float(np.sqrt(np.partition(d2, start - 1)[start - 1])) * (1 + 1e-12)
+    pos, m = position, mass
+    while True:
+        inside = d2 <= radius * radius
+        if np.count_nonzero(inside) < floor:
+            return centre
+        pos, m = pos[inside], m[inside]
+        centre = m @ pos / m.sum()
+        d = pos - centre
+        d2 = np.einsum("ij,ij->i", d, d)
+        radius *= SHRINK_FACTOR
+
+
+@dataclass(frozen=True)
+class Frame:
+    """The galaxy's centre (position kpc, velocity km/s) in a snapshot's coordinates."""
+
+    position: np.ndarray
+    velocity: np.ndarray
+
+    def to_galaxy(self, parts):
+        """Particles (name -> dict with "position", "velocity", ...) moved into the frame:
+        the galaxy's centre at rest at the origin. Other entries are kept as they are."""
+        return {name: {**p, "position": np.asarray(p["position"], float) - self.position,
+                       "velocity": np.asarray(p["velocity"], float) - self.velocity}
+                for name, p in parts.items()}
+
+    def as_dict(self):
+        return {"position_kpc": [float(x) for x in self.position],
+                "velocity_kms": [float(v) for v in self.velocity]}
+
+    def describe(self):
+        """One line for reports."""
+        x = ", ".join(f"{c:+.3g}" for c in self.position)
+        v = ", ".join(f"{c:+.3g}" for c in self.velocity)
+        return (f"galaxy centre at ({x}) kpc, moving at ({v}) km/s "
+                f"(density centre; measured about it)")
+
+
+def find_frame(parts):
+    """The Frame of particles (name -> dict of "position" (n, 3), "velocity" (n, 3),
+    "mass" (n,)): shrinking-sphere centre and the mean velocity of the
+    CENTRE_MASS_FRACTION of the mass nearest it. Pass at most MAX_PARTICLES (a random
+    subset, see :func:`subset_rows`) for large files."""
+    live = [p for p in parts.values() if np.asarray(p["mass"]).size]
+    pos = np.concatenate([np.asarray(p["position"], float) for p in live])
+    vel = np.concatenate([np.asarray(p["velocity"], float) for p in live])
+    m = np.concatenate([np.asarray(p["mass"], float) for p in live])
+    c = shrinking_sphere_centre(pos, m)
+    d2 = np.einsum("ij,ij->i", pos - c, pos - c)
+    order = np.argsort(d2)
+    inner = order[:np.searchsorted(np.cumsum(m[order]), CENTRE_MASS_FRACTION * m.sum()) + 1]
+    return Frame(c, m[inner] @ vel[inner] / m[inner].sum())
+
+
+def subset_rows(counts, total, seed):
+    """Rows of a seeded random subsample of ``total`` particles, proportional per
+    component: ``counts`` maps name -> count; returns (rows name -> sorted indices,
+    weights name -> count / chosen). All rows when ``total`` is None or not smaller than
+    the sum."""
+    everything = sum(counts.values())
+    if total is None or total >= everything:
+        return {n: np.arange(c) for n, c in counts.items()}, {n: 1.0 for n in counts}
+    rng = np.random.default_rng(seed)
+    rows, weights = {}, {}
+    for name, c in counts.items():
+        k = int(round(total * c / everything))
+        if k == 0:
+            continue
+        rows[name] = np.sort(rng.choice(c, size=k, replace=False))
+        weights[name] = c / k
+    return rows, weights
