@@ -7,7 +7,7 @@ frame one way, here, and measures about it:
 
 - position: the shrinking-sphere density centre (Power et al. 2003, MNRAS 338, 14,
   sect. 2.5) of all particles (at most ``MAX_PARTICLES``, a seeded random subset);
-  then refined to the mean position of the ``CENTRE_MASS_FRACTION`` of the mass nearest
+  then refined to the mean position of the nearest ``CENTRE_FRACTION`` of the particles
   it (see :func:`find_frame`);
 - velocity: the mass-weighted mean velocity of those same particles.
 
@@ -23,13 +23,13 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["Frame", "find_frame", "shrinking_sphere_centre", "MAX_PARTICLES",
-           "CENTRE_MASS_FRACTION"]
+           "CENTRE_FRACTION"]
 
 #: At most this many particles (a seeded random subset) locate the frame: the centre is
 #: then good to ~ r_final / sqrt(n_final) whatever the file's size, and memory stays flat.
 MAX_PARTICLES = 2_000_000
-#: Mass fraction around the density centre whose mean velocity is the frame's velocity.
-CENTRE_MASS_FRACTION = 0.05
+#: Fraction of the particles, nearest the density centre, that fix the frame.
+CENTRE_FRACTION = 0.05
 
 # Shrinking sphere (Power et al. 2003): each step keeps the particles inside a sphere 2.5 %
 # smaller than the last, about their centre of mass, and stops when fewer than
@@ -108,7 +108,7 @@ def find_frame(parts):
     "mass" (n,)).
 
     Start from the shrinking-sphere centre, then move the centre to the mass-weighted mean
-    position of the CENTRE_MASS_FRACTION of the mass nearest it until it stops moving; the
+    position of the nearest CENTRE_FRACTION of the particles (at least 1000) until it stops moving; the
     velocity is the mean velocity of the same particles. The shrinking sphere alone
     random-walks in a flat core (its last spheres hold few particles and feel no gradient):
     0.42 kpc off on average for the low-surface-brightness disk of configs/, 0.17 kpc after
@@ -121,7 +121,7 @@ def find_frame(parts):
     vel = np.concatenate([np.asarray(p["velocity"], float) for p in live])
     m = np.concatenate([np.asarray(p["mass"], float) for p in live])
     c = shrinking_sphere_centre(pos, m)
-    k = max(min(pos.shape[0], REFINE_MIN_PARTICLES), int(CENTRE_MASS_FRACTION * pos.shape[0]))
+    k = max(min(pos.shape[0], REFINE_MIN_PARTICLES), int(CENTRE_FRACTION * pos.shape[0]))
     for _ in range(REFINE_STEPS):
         d2 = np.einsum("ij,ij->i", pos - c, pos - c)
         inner = np.argpartition(d2, k - 1)[:k]
