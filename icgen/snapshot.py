@@ -135,26 +135,29 @@ def check_output_units(output, precision="double"):
     scale would turn a galaxy's values (``_VALUE_RANGES``, internal units) into infinities
     or subnormal numbers of the file's float type, or G (always float64) into one."""
     check_format(precision, None)
-    try:
-        units = OutputUnits.from_spec(output)
-    except (ArithmeticError, ValueError, u.UnitsError) as exc:   # astropy scale of 0 or inf
-        raise ModelError("output", f"{output.length_unit}, {output.velocity_unit}, "
-                                   f"{output.mass_unit}",
-                         f"G cannot be expressed in these units ({' '.join(str(exc).split())})"
-                         ) from None
     info = np.finfo(PRECISIONS[precision])
     for kind, (lo, hi) in _VALUE_RANGES.items():
-        scale = getattr(units, f"{kind}_scale")
-        unit = getattr(units, kind)
+        unit = getattr(output, f"{kind}_unit")
+        scale = unit_scale(unit, kind, f"output.{kind}_unit")
         with np.errstate(over="ignore", under="ignore"):
             big, small = np.float64(hi) * scale, np.float64(lo) * scale
         if not (math.isfinite(big) and big <= info.max and small >= info.tiny):
             internal = {"length": "kpc", "velocity": "km/s", "mass": "Msun"}[kind]
+            plural = {"length": "lengths", "velocity": "speeds", "mass": "masses"}[kind]
             raise ModelError(f"output.{kind}_unit", unit,
-                             f"scales {kind}s by {scale:.3g}: {lo:g} to {hi:g} {internal} "
+                             f"scales {plural} by {scale:.3g}: {lo:g} to {hi:g} {internal} "
                              f"would be {small:.3g} to {big:.3g}, outside the normal "
                              f"{precision}-precision range ({info.tiny:.3g} to "
                              f"{info.max:.3g}); choose a unit nearer {internal}")
+    try:
+        units = OutputUnits.from_spec(output)
+    except (ArithmeticError, ValueError, u.UnitsError) as exc:   # astropy scale of 0 or inf
+        reason = exc.args[-1] if exc.args and isinstance(exc.args[-1], str) else str(exc)
+        raise ModelError("output", f"{output.length_unit}, {output.velocity_unit}, "
+                                   f"{output.mass_unit}",
+                         f"astropy cannot express G in these units "
+                         f"({' '.join(reason.split())}); choose units nearer kpc, km/s, Msun"
+                         ) from None
     G = units.G
     if not (math.isfinite(G) and G >= np.finfo(np.float64).tiny):
         raise ModelError("output", f"{units.length}, {units.velocity}, {units.mass}",
