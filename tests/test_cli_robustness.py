@@ -13,7 +13,6 @@ import fcntl
 import io
 import json
 import os
-import resource
 import signal
 import subprocess
 import sys
@@ -23,7 +22,6 @@ from pathlib import Path
 
 import astropy.constants as const
 import astropy.units as u
-import h5py
 import numpy as np
 import pytest
 
