@@ -6,11 +6,16 @@ written as sampled, so the model's centre is the origin of the file; the net mom
 known only once every particle is made, is removed by a uniform velocity shift in a second
 in-place pass over the velocities, slab by slab.
 
-Every input is checked before any work starts (ModelError, nothing written). SIGINT and
-SIGTERM become :class:`BuildInterrupted`; like any error they remove the temporary file.
+Every input is checked before any work starts (ModelError, nothing written): the output
+path (:func:`icgen.paths.check_target`), the options, the output units, and, once the
+particle counts are known and before any sampling, the file size against the free space
+of the target folder. SIGINT, SIGTERM and SIGHUP become :class:`BuildInterrupted`; a
+failed write (full disk, file-size limit) becomes :class:`icgen.paths.OutputWriteError`;
+like any error they remove the temporary file.
 """
 import dataclasses
 import os
+import shutil
 import signal
 import threading
 import time
@@ -24,23 +29,29 @@ import numpy as np
 from . import sampling
 from .config import ModelSpec
 from .errors import ModelError
+from .paths import check_target, format_bytes
 from .progress import progress_enabled, stage_bar
-from .snapshot import SnapshotWriter, check_format
+from .snapshot import (SPEED_OF_LIGHT, SnapshotWriter, check_format, check_output_units,
+                       estimate_file_size)
 
 __all__ = ["DEFAULT_CHUNK_SIZE", "BuildInterrupted", "BuildResult", "ComponentSummary",
-           "build_snapshot", "check_output_path"]
+           "build_snapshot", "check_output_path", "check_free_space", "HANDLED_SIGNALS"]
 
 # Particles per chunk: 2**18 particles are ~15 MB of float64 position, velocity and
 # mass, plus the sampler's work arrays (a few times that): a fixed budget well under
 # 1 GB, and large enough that per-chunk overheads (HDF5 calls) stay below 1 %.
 DEFAULT_CHUNK_SIZE = 262144
+#: Signals that stop a build cleanly: Ctrl-C, kill, and closing the terminal.
+HANDLED_SIGNALS = tuple(getattr(signal, name) for name in ("SIGINT", "SIGTERM", "SIGHUP")
+                        if hasattr(signal, name))
 
 
 class BuildInterrupted(BaseException):
-    """SIGINT or SIGTERM arrived during a build; the temporary file has been removed.
+    """SIGINT, SIGTERM or SIGHUP arrived during a build; the temporary file has been removed.
 
     A BaseException, like KeyboardInterrupt, so that no ``except Exception`` on the way
-    swallows it. ``exit_status`` is 128 + the signal number (130, 143), as shells report.
+    swallows it. ``exit_status`` is 128 + the signal number (130, 143, 129), as shells
+    report.
     """
 
     def __init__(self, signum):
@@ -50,38 +61,58 @@ class BuildInterrupted(BaseException):
 
 
 class _SignalGuard:
-    """Records SIGINT/SIGTERM and raises BuildInterrupted, at once and at checkpoints.
+    """Records SIGINT/SIGTERM/SIGHUP and raises BuildInterrupted, at once and at checkpoints.
 
     The handler raises at once, so a long stage stops promptly; but Python drops an
     exception raised while it runs a weakref callback or a finalizer ("Exception
     ignored in ..."), which happened in testing. So the signal is also recorded and
     :meth:`check`, called between chunks and before the final rename, raises again:
     a signalled build can never reach the rename.
+
+    While the snapshot file is open the handler only records (:meth:`deferred`): HDF5
+    calls back into Python to write, and an exception raised there would be a failed
+    write inside HDF5. The checks between chunks and centring blocks then raise.
     """
 
     def __init__(self):
         self.received = None
+        self.defer = False
 
     def handler(self, signum, frame):
         if self.received is not None:   # already unwinding: let the clean-up finish
             return
         self.received = signum
-        raise BuildInterrupted(signum)
+        if not self.defer:
+            raise BuildInterrupted(signum)
 
     def check(self):
         if self.received is not None:
             raise BuildInterrupted(self.received)
 
+    @contextmanager
+    def deferred(self):
+        """Record signals without raising while the block runs; :meth:`check` raises.
+        (A signal during the final close and rename lets the complete file stand.)"""
+        before, self.defer = self.defer, True
+        try:
+            yield self
+        finally:
+            self.defer = before
+
 
 @contextmanager
 def _signals_raise():
-    """A _SignalGuard handling SIGINT/SIGTERM while the block runs (main thread only;
-    elsewhere signals cannot be caught and the guard never fires)."""
+    """A _SignalGuard handling HANDLED_SIGNALS while the block runs (main thread only;
+    elsewhere signals cannot be caught and the guard never fires). SIGXFSZ is ignored
+    meanwhile, so that a file-size limit (ulimit -f) fails the write with EFBIG, which
+    the writer reports, instead of killing the process and leaving its temporary file."""
     guard = _SignalGuard()
     if threading.current_thread() is not threading.main_thread():
         yield guard
         return
-    previous = {s: signal.signal(s, guard.handler) for s in (signal.SIGINT, signal.SIGTERM)}
+    previous = {s: signal.signal(s, guard.handler) for s in HANDLED_SIGNALS}
+    if hasattr(signal, "SIGXFSZ"):
+        previous[signal.SIGXFSZ] = signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
     try:
         yield guard
     finally:
@@ -107,7 +138,9 @@ class BuildResult:
 
     ``centre_of_mass`` is (position kpc, velocity km/s) of the sampled particles, the
     velocity being the uniform shift's opposite (positions are not moved); ``timing``
-    holds seconds per stage; ``warnings`` the sampler's messages.
+    holds seconds per stage; ``warnings`` the sampler's and the writer's messages
+    (particles faster than light); ``size_estimate`` the file size (bytes) estimated
+    before sampling.
     """
     path: str
     size_bytes: int
@@ -118,6 +151,7 @@ class BuildResult:
     timing: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
     notes: list = field(default_factory=list)
+    size_estimate: int = 0
 
     def report(self):
         """Summary table and the output line, as printed by ``icgen build``."""
@@ -139,26 +173,33 @@ class BuildResult:
                  f"moved)",
                  f"net momentum removed: every velocity shifted by {vec(-v0)} km/s",
                  *self.notes,
-                 f"wrote {self.path} ({self.size_bytes / 1e6:.1f} MB, seed {self.seed}) "
+                 *[f"warning: {w}" for w in self.warnings],
+                 f"wrote {self.path} ({self.size_bytes / 1e6:.1f} MB, estimated before "
+                 f"sampling {self.size_estimate / 1e6:.1f} MB; seed {self.seed}) "
                  f"in {sum(self.timing.values()):.1f} s"]
         return "\n".join(lines)
 
 
-def check_output_path(path, overwrite=False):
-    """Absolute target path, or ModelError if it cannot be written (nothing is touched)."""
-    if not isinstance(path, (str, os.PathLike)) or not str(path).strip():
-        raise ModelError("--output", path, "must be the path of the .h5 file to write")
-    path = os.path.abspath(os.fspath(path))
-    folder = os.path.dirname(path)
-    if not os.path.isdir(folder):
-        raise ModelError("--output", path, f"folder {folder!r} does not exist")
-    if not os.access(folder, os.W_OK | os.X_OK):
-        raise ModelError("--output", path, f"folder {folder!r} is not writable")
-    if os.path.isdir(path):
-        raise ModelError("--output", path, "is a folder; give a file name, e.g. galaxy.h5")
-    if os.path.lexists(path) and not overwrite:
-        raise ModelError("--output", path, "file exists; pass --overwrite to replace it")
-    return path
+def check_output_path(path, overwrite=False, inputs=()):
+    """Absolute target path, or ModelError if it cannot be written (nothing is touched):
+    the rules of :func:`icgen.paths.check_target`, ``inputs`` being the model file."""
+    return check_target(path, "--output", overwrite=overwrite, inputs=inputs)
+
+
+def check_free_space(path, spec, plans, precision="double", compress=None):
+    """Estimated file size (bytes, :func:`icgen.snapshot.estimate_file_size`); ModelError
+    with the figures when it exceeds the free space of the target's folder."""
+    need = estimate_file_size(plans, precision, compress, len(spec.to_toml().encode()))
+    folder = os.path.dirname(os.path.abspath(path))
+    free = shutil.disk_usage(folder).free
+    if need > free:
+        count = sum(int(p.count) for p in plans)
+        how = f"{precision} precision" + ("; compression assumed to gain nothing"
+                                          if compress else "")
+        raise ModelError("--output", path, f"the snapshot needs about {format_bytes(need)} "
+                                           f"({count:,} particles, {how}) but {folder} has "
+                                           f"{format_bytes(free)} free")
+    return need
 
 
 def _check_options(precision, compress, chunk_size):
@@ -217,11 +258,14 @@ def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double
     NonFiniteError
         The sampler produced a NaN or infinity (names the component); nothing written.
     BuildInterrupted
-        SIGINT or SIGTERM; nothing written.
+        SIGINT, SIGTERM or SIGHUP; nothing written.
+    icgen.paths.OutputWriteError
+        A write failed (full disk, file-size limit); nothing written.
     """
     path = check_output_path(path, overwrite)
     _check_options(precision, compress, chunk_size)
     spec, built = _resolve_spec(model, seed)
+    check_output_units(spec.output, precision)
     bars = progress_enabled(quiet)
     timing = {}
     with _signals_raise() as guard:
@@ -230,10 +274,12 @@ def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double
             model = _stage("potential", bars, timing,
                            lambda: built if built is not None else _galaxy_model(spec))
             plans = sampling.plan(model)
+            estimate = check_free_space(path, spec, plans, precision, compress)
             guard.check()
             _stage("velocity tables", bars, timing, lambda: sampling.realize.samplers(model))
             guard.check()
-            with SnapshotWriter(path, spec, plans, precision, compress) as writer:
+            with guard.deferred(), SnapshotWriter(path, spec, plans, precision,
+                                                  compress) as writer:
                 report = sampling.SamplingReport()
                 _stream(model, writer, plans, chunk_size, bars, timing, report, guard)
                 # the sampler sums m x and m v per fixed block: a velocity shift that
@@ -249,12 +295,25 @@ def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double
             messages.append(str(w.message))
         else:
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    messages += _speed_warnings(writer)
     result = _result(writer, plans, path, spec, timing, messages)
+    result.size_estimate = estimate
     sol = getattr(model, "gas_solution", None)
     if sol is not None:
         result.notes.append(f"gas vertical equilibrium: converged in {sol.iterations} "
                             f"iterations (last midplane density change {sol.changes[-1]:.1e})")
     return result
+
+
+def _speed_warnings(writer):
+    """One message per component with particles faster than light (as sampled)."""
+    out = []
+    for name, s in writer.streams.items():
+        if s.faster_than_light:
+            out.append(f"component {name!r}: {s.faster_than_light:,} particles faster than "
+                       f"light (fastest {s.max_speed:.4g} km/s; c = {SPEED_OF_LIGHT:.6g} km/s,"
+                       f" astropy.constants.c): the model is not physical there")
+    return out
 
 
 def _galaxy_model(spec):

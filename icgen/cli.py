@@ -1,15 +1,32 @@
 """Command-line interface: parses arguments, calls the library, prints. ``main(argv) -> int``.
 
-Exit status: 0 success, 1 a check failed, 2 bad input (nothing written).
+Exit status:
+
+- 0 success;
+- 1 a check or drift test failed, or the sampler made a non-finite value;
+- 2 bad input: one line naming the option or key and the rule, nothing written;
+- 74 an output could not be written (full disk, file-size limit, other I/O errors; EX_IOERR
+  of BSD sysexits.h, so that scripts can tell it from bad input and failed checks): one
+  line saying what, where and, for snapshots, the space needed; nothing written;
+- 128 + N for signal N (130 SIGINT/Ctrl-C, 129 SIGHUP, 143 SIGTERM), as shells report.
+
+A closed standard output (``icgen curve | head -1``) changes neither the files written nor
+the exit status. The module imports nothing heavy, so that Ctrl-C right after start-up is
+already a one-line message.
 """
 import argparse
+import io
 import os
 import sys
+from contextlib import contextmanager
 
-import numpy as np
-
-from . import __version__
+from . import __version__, paths
 from .errors import ModelError
+
+#: Exit status for an output that could not be written (EX_IOERR, BSD sysexits.h).
+EXIT_IO_ERROR = 74
+#: Exit status after SIGINT (Ctrl-C): 128 + 2, as shells report it.
+EXIT_SIGINT = 130
 
 
 def _add_model_arg(p):
@@ -53,6 +70,9 @@ def build_parser():
                    help="particles held in memory at a time (default 262144); the file "
                         "does not depend on it")
     p.add_argument("--quiet", action="store_true", help="no progress bars and no summary")
+    p.add_argument("--remove-stale", action="store_true",
+                   help="remove temporary files in the output folder left by builds that "
+                        "were killed (they are listed on every build)")
 
     p = sub.add_parser("info", help="short summary of a snapshot file")
     p.add_argument("path", help="snapshot file (HDF5, icgen schema)")
@@ -103,38 +123,136 @@ def build_parser():
 
 
 def main(argv=None):
-    """Run the CLI; returns the exit status."""
-    args = build_parser().parse_args(argv)
+    """Run the CLI; returns the exit status (see the module docstring)."""
+    with _pipe_safe_stdout():
+        try:
+            return _main(argv)
+        except KeyboardInterrupt:       # Ctrl-C anywhere, even in the first imports
+            _say("icgen: interrupted by SIGINT")
+            return EXIT_SIGINT
+
+
+def _main(argv):
     try:
+        args = build_parser().parse_args(argv)
         return COMMANDS[args.command](args)
     except ModelError as exc:
-        print(f"icgen: error: {exc}", file=sys.stderr)
+        _say(f"icgen: error: {exc}")
         return 2
+    except paths.OutputWriteError as exc:
+        _say(f"icgen: error: {exc}")
+        return EXIT_IO_ERROR
+    except OSError as exc:              # an output or input the system refused
+        where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
+        _say(f"icgen: error: {where}{paths.describe_os_error(exc)}")
+        return EXIT_IO_ERROR
 
 
 def run():
-    """Console-script entry point."""
-    sys.exit(main())
+    """Console-script entry point.
+
+    After Ctrl-C the process ends with os._exit(130) once its output is flushed: the
+    normal interpreter shutdown would turn a handled KeyboardInterrupt back into a kill
+    by SIGINT when the interrupt passed through code that an extension module ran with
+    PyRun_String during an import (CPython keeps a global flag; seen in testing).
+    """
+    try:
+        status = main()
+    except KeyboardInterrupt:           # between main's parts
+        _say("icgen: interrupted by SIGINT")
+        status = EXIT_SIGINT
+    if status == EXIT_SIGINT:
+        for stream in (sys.stdout, sys.stderr):
+            try:
+                stream.flush()
+            except (OSError, ValueError, AttributeError):
+                pass
+        os._exit(status)
+    sys.exit(status)
 
 
-def _check_output_path(path, key, overwrite=True):
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise ModelError(key, path, f"folder {folder!r} does not exist")
-    if not overwrite and os.path.exists(path):
-        raise ModelError(key, path, "file exists; pass --overwrite to replace it")
+def _say(line):
+    """One line on standard error (which may itself be closed: then nothing)."""
+    try:
+        print(line, file=sys.stderr)
+    except (OSError, ValueError):
+        pass
+
+
+class _PipeSafeStdout:
+    """Stand-in for sys.stdout while a command runs.
+
+    The first BrokenPipeError (the reader has gone, as in ``icgen check ... | head -1``)
+    is swallowed, the stream's file descriptor is pointed at os.devnull (what the Python
+    docs advise for SIGPIPE, so that the flush at exit cannot fail again), and later
+    output is dropped: the files a command writes and its exit status do not change.
+    """
+
+    def __init__(self, stream):
+        self._stream = stream
+        self.broken = False
+
+    def write(self, text):
+        if not self.broken:
+            try:
+                return self._stream.write(text)
+            except BrokenPipeError:
+                self._reader_gone()
+        return len(text)
+
+    def flush(self):
+        if not self.broken:
+            try:
+                self._stream.flush()
+            except BrokenPipeError:
+                self._reader_gone()
+
+    def _reader_gone(self):
+        self.broken = True
+        try:
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            try:
+                os.dup2(devnull, self._stream.fileno())
+            finally:
+                os.close(devnull)
+        except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
+            pass                        # not a real file (a test's capture)
+
+    def __getattr__(self, name):
+        return getattr(self._stream, name)
+
+
+@contextmanager
+def _pipe_safe_stdout():
+    original = sys.stdout
+    if original is None or isinstance(original, _PipeSafeStdout):
+        yield
+        return
+    guard = _PipeSafeStdout(original)
+    sys.stdout = guard
+    try:
+        yield
+    finally:
+        guard.flush()                   # what is still buffered, before main returns
+        if sys.stdout is guard:
+            sys.stdout = original
+
+
+def _targets(args, keys, inputs):
+    """Checked absolute paths of the file options ``keys`` that were given."""
+    return {key: paths.check_target(getattr(args, key), f"--{key}", inputs=inputs)
+            for key in keys if getattr(args, key)}
 
 
 def cmd_curve(args):
+    import numpy as np
     from .diagnostics import curve
     from .model import GalaxyModel
     from .units import parse_quantity
     from . import config
     import astropy.units as u
 
-    for key in ("table", "plot"):
-        if getattr(args, key):
-            _check_output_path(getattr(args, key), f"--{key}")
+    targets = _targets(args, ("table", "plot"), [args.model])
     if args.points < 2:
         raise ModelError("--points", args.points, "must be at least 2")
     model = GalaxyModel(config.load_spec(args.model))
@@ -155,11 +273,13 @@ def cmd_curve(args):
     if args.table or args.plot:
         full = curve.rotation_curve(model, np.linspace(0.0, r_out, 301))
         if args.table:
-            full.write(args.table, format="ascii.ecsv", overwrite=True)
+            with paths.replacing(targets["table"]) as tmp:
+                full.write(tmp, format="ascii.ecsv", overwrite=True)
         if args.plot:
             from .diagnostics.plots import plot_rotation_curve
             kinds = {n: c.kind for n, c in model.components.items()}
-            plot_rotation_curve(full, kinds, args.plot, summary)
+            with paths.replacing(targets["plot"]) as tmp:
+                plot_rotation_curve(full, kinds, tmp, summary)
         if not args.quiet:
             for path in (args.table, args.plot):
                 if path:
@@ -191,9 +311,10 @@ def _curve_report(model, table, s):
 
 def cmd_new(args):
     from .default_model import STARTER_TOML
-    _check_output_path(args.path, "path", overwrite=args.overwrite)
-    with open(args.path, "w", encoding="utf-8") as fh:
-        fh.write(STARTER_TOML)
+    target = paths.check_target(args.path, "path", overwrite=args.overwrite)
+    with paths.replacing(target) as tmp:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            fh.write(STARTER_TOML)
     print(f"wrote {args.path}: edit it, then try 'icgen curve {args.path}'")
     return 0
 
@@ -203,7 +324,9 @@ def cmd_build(args):
     from .build import BuildInterrupted, build_snapshot, check_output_path
     from .snapshot import NonFiniteError
 
-    check_output_path(args.output, args.overwrite)   # before the model is even read
+    # before the model is even read
+    target = check_output_path(args.output, args.overwrite, inputs=[args.model])
+    _stale_temporary_files(os.path.dirname(target), args.remove_stale)
     spec = config.load_spec(args.model)
     options = {} if args.chunk_size is None else {"chunk_size": args.chunk_size}
     try:
@@ -223,6 +346,18 @@ def cmd_build(args):
     return 0
 
 
+def _stale_temporary_files(folder, remove):
+    """One line on stderr per temporary file in ``folder`` left by a killed process;
+    removed when ``remove`` (``--remove-stale``)."""
+    stale = paths.stale_partials(folder)
+    if remove:
+        for f in paths.remove_stale(stale):
+            _say(f"icgen: removed {f.describe()}")
+    else:
+        for f in stale:
+            _say(f"icgen: note: {f.describe()}; --remove-stale removes it")
+
+
 def cmd_info(args):
     from .snapshot import describe
 
@@ -230,19 +365,41 @@ def cmd_info(args):
     return 0
 
 
+def is_snapshot_path(path):
+    """True for a file to read as a snapshot: named .h5/.hdf5, or HDF5 by content."""
+    if str(path).lower().endswith((".h5", ".hdf5")):
+        return True
+    import h5py
+    try:
+        return os.path.isfile(path) and h5py.is_hdf5(path)
+    except OSError:
+        return False
+
+
+def _model_or_snapshot(source):
+    """GalaxyModel of a model file (TOML), the default model (None) or a snapshot."""
+    from . import config
+    from .model import GalaxyModel
+    from .snapshot import load_model_from_snapshot
+
+    if source is not None and is_snapshot_path(source):
+        return load_model_from_snapshot(source)
+    return GalaxyModel(config.load_spec(source))
+
+
 def cmd_stability(args):
     from .diagnostics import stability
 
-    for key in ("json", "plot"):
-        if getattr(args, key):
-            _check_output_path(getattr(args, key), f"--{key}")
-    report = stability.analyse(stability.load_source(args.model))
+    targets = _targets(args, ("json", "plot"), [args.model])
+    report = stability.analyse(_model_or_snapshot(args.model))
     if not args.quiet:
         print(stability.format_report(report))
     if args.json:
-        report.write_json(args.json)
+        with paths.replacing(targets["json"]) as tmp:
+            report.write_json(tmp)
     if args.plot:
-        stability.plot_stability(report, args.plot)
+        with paths.replacing(targets["plot"]) as tmp:
+            stability.plot_stability(report, tmp)
     if not args.quiet:
         for path in (args.json, args.plot):
             if path:
@@ -255,10 +412,13 @@ def cmd_check(args):
     from .units import parse_quantity
     import astropy.units as u
 
+    import math
+
     options = {}
     if args.sigma is not None:
-        if not args.sigma > 0:
-            raise ModelError("--sigma", args.sigma, "must be a positive number of standard errors")
+        if not (math.isfinite(args.sigma) and args.sigma > 0):
+            raise ModelError("--sigma", args.sigma, "must be a finite positive number of "
+                                                    "standard errors, e.g. 5")
         options["n_sigma"] = args.sigma
     if args.softening:
         options["softening"] = parse_quantity(args.softening, "--softening", u.kpc)
@@ -268,14 +428,20 @@ def cmd_check(args):
         if args.sources < 100:
             raise ModelError("--sources", args.sources, "must be at least 100")
         options["max_sources"] = args.sources
-    if args.json:
-        _check_output_path(args.json, "--json")
-    if args.report and os.path.exists(args.report) and not os.path.isdir(args.report):
-        raise ModelError("--report", args.report, "exists and is not a folder")
+    targets = _targets(args, ("json",), [args.path])
+    if args.report:
+        paths.check_folder_target(args.report, "--report", ("check.json", "check.png"),
+                                  inputs=[args.path])
     result = check.check_snapshot(args.path, **options)
     if not args.quiet:
         print(result.format_table())
-    written = check.write_outputs(result, args.json, args.report)
+    written = []
+    if args.json:
+        with paths.replacing(targets["json"]) as tmp:
+            check.write_outputs(result, tmp, None)
+        written.append(args.json)
+    if args.report:
+        written += check.write_outputs(result, None, args.report)
     if not args.quiet:
         for path in written:
             print(f"wrote {path}")
@@ -284,7 +450,10 @@ def cmd_check(args):
 
 def cmd_mock(args):
     from .mock.command import run as run_mock
+    from .mock.observation import OUTPUT_FILES
 
+    paths.check_folder_target(args.output, "--output", OUTPUT_FILES.values(),
+                              inputs=[args.snapshot])
     return run_mock(args)
 
 
@@ -297,6 +466,8 @@ def cmd_drift(args):
                "threshold": drift.parse_number(args.threshold, "--threshold", drift.THRESHOLD)}
     if args.report:
         drift.check_report_dir(args.report)
+        paths.check_folder_target(args.report, "--report", ("drift.json", "drift.png"),
+                                  inputs=[args.path])
     result = drift.drift_snapshot(args.path, args.time, step=args.step, quiet=args.quiet,
                                   **options)
     if not args.quiet:

@@ -14,13 +14,18 @@ Values are in the output units named by the root attributes (the model's [output
 the writer converts from the internal units (kpc, km/s, Msun) once, at the edge.
 
 The writer fills pre-sized datasets chunk by chunk in a temporary file next to the target
-(``.NAME.partial-<pid>``) and renames it only when everything is written, so a file at the
-target path is always complete. The root attribute ``schema`` is written last: even a
-temporary file left by a killed process is never taken for a snapshot.
+(``.NAME.partial-<pid>``, see :func:`icgen.paths.partial_path`) and renames it only when
+everything is written, so a file at the target path is always complete. The root attribute
+``schema`` is written last: even a temporary file left by a killed process is never taken
+for a snapshot. HDF5 reaches the disk through :class:`_DiskFile`, which keeps HDF5 from
+ever seeing a failed write (a full disk becomes one clean :class:`OutputWriteError`).
 """
 import datetime
+import fcntl
+import io
 import math
 import os
+import stat
 import tomllib
 from dataclasses import dataclass, field
 
@@ -30,13 +35,16 @@ import h5py
 import numpy as np
 
 from . import __version__
+from . import paths
 from .errors import MISSING, ModelError
+from .paths import OutputWriteError, describe_os_error, format_bytes
 from .units import unit_scale
 
 __all__ = ["SCHEMA", "SCHEMA_VERSION", "PRECISIONS", "COMPRESSIONS", "OutputUnits",
-           "NonFiniteError", "SnapshotWriter", "Snapshot", "read_snapshot", "read_header",
-           "load_model_from_snapshot", "partial_path", "gravitational_constant",
-           "check_format", "describe"]
+           "NonFiniteError", "OutputWriteError", "SnapshotWriter", "Snapshot", "read_snapshot",
+           "read_header", "load_model_from_snapshot", "partial_path", "gravitational_constant",
+           "check_format", "check_output_units", "estimate_file_size", "describe",
+           "SPEED_OF_LIGHT"]
 
 SCHEMA = "icgen-snapshot"
 SCHEMA_VERSION = 2
@@ -64,6 +72,24 @@ _R_LOG_MIN, _R_PER_DECADE = -6.0, 1000
 _R_EDGES = np.logspace(_R_LOG_MIN, 7.0, 13 * _R_PER_DECADE + 1)
 _ROOT_KEYS = ("schema", "schema_version", "length_unit", "velocity_unit", "mass_unit", "G",
               "seed", "config", "created", "icgen_version")
+#: Speed of light in km/s (astropy.constants.c, exact by the SI definition).
+SPEED_OF_LIGHT = float(const.c.to_value(u.km / u.s))
+# Range of values (internal units) that every output unit must hold as normal floats of
+# the file's precision, checked before any work: lengths 1e-6 kpc (0.2 au) to 1e7 kpc
+# (10 Gpc, beyond any halo), speeds 1e-3 km/s to c, masses 1e-3 Msun to 1e16 Msun (above
+# the most massive galaxy clusters, ~1e15 Msun). The bounds are generous on purpose: a
+# unit that fails them is a typo, not a choice; values that still fall outside stop the
+# writer at their chunk (NonFiniteError).
+_VALUE_RANGES = {"length": (1e-6, 1e7), "velocity": (1e-3, SPEED_OF_LIGHT),
+                 "mass": (1e-3, 1e16)}
+# File-size estimate: HDF5 metadata per dataset (object header, layout, attributes;
+# ~1.7 kB measured with h5py 3.16 / HDF5 2.0, rounded up), per chunk of a compressed
+# dataset (chunk index entry, ~100 B, rounded up), and for the file (superblock, groups).
+_DATASET_OVERHEAD = 4096
+_CHUNK_OVERHEAD = 256
+_FILE_OVERHEAD = 65536
+# Points of the stored rotation curve assumed by the estimate (curve.default_radii: 120).
+_CURVE_POINTS_BOUND = 1000
 
 
 class NonFiniteError(RuntimeError):
@@ -107,10 +133,71 @@ def check_format(precision, compress):
         raise ModelError("--compress", compress, f"must be one of {', '.join(COMPRESSIONS)}")
 
 
+def check_output_units(output, precision="double"):
+    """OutputUnits of a :class:`icgen.config.OutputSpec`, or ModelError when a unit's
+    scale would turn a galaxy's values (``_VALUE_RANGES``, internal units) into infinities
+    or subnormal numbers of the file's float type, or G (always float64) into one."""
+    check_format(precision, None)
+    info = np.finfo(PRECISIONS[precision])
+    for kind, (lo, hi) in _VALUE_RANGES.items():
+        unit = getattr(output, f"{kind}_unit")
+        scale = unit_scale(unit, kind, f"output.{kind}_unit")
+        with np.errstate(over="ignore", under="ignore"):
+            big, small = np.float64(hi) * scale, np.float64(lo) * scale
+        if not (math.isfinite(big) and big <= info.max and small >= info.tiny):
+            internal = {"length": "kpc", "velocity": "km/s", "mass": "Msun"}[kind]
+            plural = {"length": "lengths", "velocity": "speeds", "mass": "masses"}[kind]
+            raise ModelError(f"output.{kind}_unit", unit,
+                             f"scales {plural} by {scale:.3g}: {lo:g} to {hi:g} {internal} "
+                             f"would be {small:.3g} to {big:.3g}, outside the normal "
+                             f"{precision}-precision range ({info.tiny:.3g} to "
+                             f"{info.max:.3g}); choose a unit nearer {internal}")
+    try:
+        units = OutputUnits.from_spec(output)
+    except (ArithmeticError, ValueError, u.UnitsError) as exc:   # astropy scale of 0 or inf
+        reason = exc.args[-1] if exc.args and isinstance(exc.args[-1], str) else str(exc)
+        raise ModelError("output", f"{output.length_unit}, {output.velocity_unit}, "
+                                   f"{output.mass_unit}",
+                         f"astropy cannot express G in these units "
+                         f"({' '.join(reason.split())}); choose units nearer kpc, km/s, Msun"
+                         ) from None
+    G = units.G
+    if not (math.isfinite(G) and G >= np.finfo(np.float64).tiny):
+        raise ModelError("output", f"{units.length}, {units.velocity}, {units.mass}",
+                         f"G in these units is {G:.3g}, not a normal float64; choose units "
+                         f"nearer kpc, km/s, Msun")
+    return units
+
+
+def estimate_file_size(plans, precision="double", compress=None, config_bytes=0):
+    """Upper estimate (bytes) of the snapshot file of these plans.
+
+    Datasets at their full size (compression assumed to gain nothing), HDF5 metadata per
+    dataset and per compressed chunk, the rotation curve (at most _CURVE_POINTS_BOUND
+    points) and the stored model file (``config_bytes``).
+    """
+    check_format(precision, compress)
+    item = np.dtype(PRECISIONS[precision]).itemsize
+    total = _FILE_OVERHEAD + config_bytes
+    n_components = 0
+    for p in plans:
+        n = int(p.count)
+        n_components += 1
+        columns = [(3, item), (3, item), (1, item), (1, np.dtype(ID_DTYPE).itemsize)]
+        if p.kind == GAS_KIND:
+            columns.append((1, item))
+        for width, size in columns:
+            total += n * width * size + _DATASET_OVERHEAD
+            if compress is not None:
+                total += -(-n // H5_CHUNK_ROWS) * _CHUNK_OVERHEAD
+    total += (n_components + 2) * (_CURVE_POINTS_BOUND * 8 + _DATASET_OVERHEAD)
+    return int(total)
+
+
 def partial_path(path):
-    """Temporary name next to ``path``: ``dir/.NAME.partial-<pid>``."""
-    folder, name = os.path.split(os.path.abspath(path))
-    return os.path.join(folder, f".{name}.partial-{os.getpid()}")
+    """Temporary name next to ``path``: ``dir/.NAME.partial-<pid>``, shortened to fit the
+    file-name limit (:func:`icgen.paths.partial_path`)."""
+    return paths.partial_path(path)
 
 
 def _check_finite(values, component, what, start):
@@ -138,6 +225,127 @@ class _Stream:
     r_hist: np.ndarray = field(default_factory=lambda: np.zeros(_R_EDGES.size + 1))
     r_max: float = 0.0        # farthest particle from the origin, output unit
     total_out: float = 0.0    # sum of the written masses, output unit
+    faster_than_light: int = 0    # particles with |v| > c, as sampled
+    max_speed: float = 0.0        # km/s, as sampled
+
+
+class _DiskFile:
+    """The temporary file, as the file object of h5py's "fileobj" driver.
+
+    HDF5 cannot recover from a failed write: with its own driver a full disk (ENOSPC) or
+    a file-size limit (EFBIG) brought errors from finalizers ("Exception ignored") and a
+    crash in the final close. Here the first failed write (or an exception raised by a
+    signal handler while HDF5 calls in) is kept in :attr:`error` and every later write
+    is dropped: HDF5 always sees success and closes cleanly, and the writer stops at its
+    next check with :class:`OutputWriteError`. Reads past the end give zeros, as HDF5's
+    own driver does. The file holds an exclusive flock while open, so that
+    :func:`icgen.paths.stale_partials` never takes it for a left-over.
+    """
+
+    def __init__(self, path):
+        fd = os.open(path, os.O_RDWR | os.O_CREAT | os.O_TRUNC | getattr(os, "O_CLOEXEC", 0),
+                     0o666)
+        self._f = io.FileIO(fd, "r+b", closefd=True)
+        self.error = None
+        self.written = 0              # file size when the first failure came
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:               # no lock support (some network file systems)
+            pass
+
+    @property
+    def closed(self):
+        return self._f.closed
+
+    def write(self, data):
+        view = memoryview(data).cast("B")
+        n = len(view)
+        if self._f.closed:
+            return n
+        start = self._f.tell()
+        done = 0
+        try:
+            if self.error is None:
+                while done < n:
+                    k = self._f.write(view[done:])
+                    if not k:
+                        raise OSError(5, "write() wrote nothing")   # EIO
+                    done += k
+        except BaseException as exc:  # an OSError, or a signal's exception: never to HDF5
+            self._keep(exc)
+        if done < n:
+            self._f.seek(start + n)
+        return n
+
+    def _keep(self, exc):
+        if self.error is None:
+            self.error = exc
+            try:
+                self.written = os.fstat(self._f.fileno()).st_size
+            except OSError:
+                pass
+
+    def readinto(self, buffer):
+        view = memoryview(buffer).cast("B")
+        got = 0
+        try:
+            if not self._f.closed:
+                got = self._f.readinto(view) or 0
+        except BaseException as exc:  # kept and raised by the writer, never in HDF5
+            self._keep(exc)
+            got = 0
+        if got < len(view):
+            view[got:] = bytes(len(view) - got)
+        return len(view)
+
+    def read(self, size=-1):
+        if size is None or size < 0:
+            return b"" if self._f.closed else self._f.read()
+        buffer = bytearray(size)
+        self.readinto(buffer)
+        return bytes(buffer)
+
+    def seek(self, offset, whence=0):
+        if self._f.closed:
+            return 0
+        try:
+            return self._f.seek(offset, whence)
+        except BaseException as exc:
+            self._keep(exc)
+            return self._f.seek(offset, whence)   # HDF5 seeks to absolute offsets
+
+    def tell(self):
+        if self._f.closed:
+            return 0
+        try:
+            return self._f.tell()
+        except BaseException as exc:
+            self._keep(exc)
+            return self._f.tell()
+
+    def truncate(self, size=None):
+        if self._f.closed:
+            return 0 if size is None else size
+        try:
+            if self.error is None:
+                return self._f.truncate(size)
+        except BaseException as exc:
+            self._keep(exc)
+        return self._f.tell() if size is None else size
+
+    def flush(self):
+        pass
+
+    def sync(self):
+        """fsync the data to disk (a failure is kept in :attr:`error` like a write's)."""
+        if self.error is None and not self._f.closed:
+            try:
+                os.fsync(self._f.fileno())
+            except OSError as exc:
+                self._keep(exc)
+
+    def close(self):
+        self._f.close()
 
 
 class SnapshotWriter:
@@ -169,6 +377,10 @@ class SnapshotWriter:
         Float type of position, velocity and mass.
     compress : {None, "gzip", "lzf"}
         None: contiguous datasets; otherwise chunked with the shuffle filter.
+
+    A failed write (full disk, file-size limit) raises :class:`OutputWriteError` from
+    the call that finds it (``append``, ``commit``, or the ``with`` block's exit) and
+    removes the temporary file.
     """
 
     def __init__(self, path, spec, plans, precision="double", compress=None):
@@ -176,22 +388,29 @@ class SnapshotWriter:
         self.path = os.path.abspath(path)
         self.tmp_path = partial_path(path)
         self.spec = spec
-        self.units = OutputUnits.from_spec(spec.output)
+        self.units = check_output_units(spec.output, precision)
         self.dtype = np.dtype(PRECISIONS[precision])
+        self.size_estimate = estimate_file_size(plans, precision, compress,
+                                                len(spec.to_toml().encode()))
         self.bulk = (np.zeros(3), np.zeros(3))
         self.streams = {}
         next_id = FIRST_ID
         for p in plans:
             self.streams[p.name] = _Stream(p.kind, int(p.count), next_id)
             next_id += int(p.count)
-        self._file = None
+        self._file = self._disk = None
+        self._finished = False
         try:
-            self._file = h5py.File(self.tmp_path, "w")
+            try:
+                self._disk = _DiskFile(self.tmp_path)
+            except OSError as exc:
+                raise self._write_error(exc) from None
+            self._file = h5py.File(self._disk, "w")
             self._create_datasets(compress)
+            self._raise_if_failed()
         except BaseException:   # a signal can land here too: never leave the file
             self.abort()
             raise
-        self._finished = False
 
     def _create_datasets(self, compress):
         opts = {}
@@ -245,6 +464,11 @@ class SnapshotWriter:
             # in the input stays one, and a float32 overflow shows up as inf
             _check_finite(out, chunk.component, what, lo)
             converted[what] = out
+        v = np.asarray(chunk.velocity, dtype=np.float64)
+        if n:
+            v2 = np.einsum("ij,ij->i", v, v)
+            s.faster_than_light += int(np.count_nonzero(v2 > SPEED_OF_LIGHT**2))
+            s.max_speed = max(s.max_speed, math.sqrt(float(v2.max())))
         m = np.asarray(chunk.mass, dtype=np.float64)
         s.mass += m.sum()
         s.mass_x += m @ np.asarray(chunk.position, dtype=np.float64)
@@ -259,6 +483,7 @@ class SnapshotWriter:
             g[what][lo:hi] = out
         g["id"][lo:hi] = np.arange(s.first_id + lo, s.first_id + hi, dtype=ID_DTYPE)
         s.written += n
+        self._raise_if_failed()
 
     def centre_of_mass(self):
         """(position (3,) kpc, velocity (3,) km/s) of everything appended so far."""
@@ -361,33 +586,102 @@ class SnapshotWriter:
     # ------------------------------------------------------------------ closing
 
     def commit(self, overwrite=False):
-        """Close, flush to disk and rename the temporary file onto the target."""
+        """Check every float attribute, close, flush to disk and rename the temporary
+        file onto the target. NonFiniteError or OutputWriteError leave nothing."""
         if not self._finished:
             raise RuntimeError("commit() before finish()")
+        self._check_attributes()
+        self._raise_if_failed()
         self._file.close()
-        with open(self.tmp_path, "rb") as fh:
-            os.fsync(fh.fileno())    # data on disk before the rename makes it visible
-        if not overwrite and os.path.exists(self.path):
-            # the target appeared while we were building
-            self.abort()
-            raise ModelError("--output", self.path, "file exists; pass --overwrite to replace it")
+        self._disk.sync()            # data on disk before the rename makes it visible
+        self._raise_if_failed()      # the final close and fsync write too
+        self._disk.close()
+        if os.path.lexists(self.path):
+            # the target appeared, or changed kind, while we were building
+            try:
+                st = os.stat(self.path)
+                regular = stat.S_ISREG(st.st_mode)
+            except OSError:
+                regular = True       # a dangling link: os.replace replaces the link
+            if not overwrite or not regular:
+                self.abort()
+                rule = ("file exists; pass --overwrite to replace it" if regular else
+                        "is not a regular file; icgen writes and replaces regular files only")
+                raise ModelError("--output", self.path, rule)
         os.replace(self.tmp_path, self.path)
+
+    def _check_attributes(self):
+        """NonFiniteError for a NaN or infinite float attribute anywhere in the file."""
+        def check(where, obj):
+            for key, value in obj.attrs.items():
+                arr = np.asarray(value)
+                if arr.dtype.kind in "fc" and not np.all(np.isfinite(arr)):
+                    raise NonFiniteError(f"attribute {key!r} of /{where} is "
+                                         f"{' '.join(str(value).split())} (in output units); "
+                                         f"nothing written")
+        check("", self._file)
+        self._file.visititems(check)
+
+    def _raise_if_failed(self):
+        """Raise what the disk file kept: OutputWriteError for a failed write, or the
+        exception a signal handler raised while HDF5 was writing."""
+        error = None if self._disk is None else self._disk.error
+        if error is None:
+            return
+        if isinstance(error, OSError):
+            raise self._write_error(error) from None
+        raise error
+
+    def _write_error(self, exc):
+        """OutputWriteError for ``exc``: what failed, where, and the space needed."""
+        import resource
+        import shutil
+
+        folder = os.path.dirname(self.path)
+        written = 0 if self._disk is None else self._disk.written
+        line = (f"cannot write {self.path}: {describe_os_error(exc)} with "
+                f"{format_bytes(written)} written; the snapshot needs about "
+                f"{format_bytes(self.size_estimate)}")
+        try:
+            line += f", {format_bytes(shutil.disk_usage(folder).free)} free in {folder}"
+        except OSError:
+            pass
+        limit = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
+        if limit != resource.RLIM_INFINITY:
+            line += f", file-size limit (ulimit -f) {format_bytes(limit)}"
+        return OutputWriteError(line + "; nothing written")
 
     def abort(self):
         """Close and remove the temporary file (safe to call more than once)."""
         try:
             if self._file is not None and self._file.id.valid:
-                self._file.close()
+                try:
+                    self._file.close()
+                except Exception:    # the file is removed below whatever HDF5 says
+                    pass
         finally:
-            if os.path.exists(self.tmp_path):
+            if self._disk is not None:
+                self._disk.close()
+            try:
                 os.remove(self.tmp_path)
+            except FileNotFoundError:
+                pass
+
+    @property
+    def write_failed(self):
+        """True once a write to the temporary file has failed."""
+        return self._disk is not None and isinstance(self._disk.error, OSError)
 
     def __enter__(self):
         return self
 
     def __exit__(self, exc_type, exc, tb):
-        if os.path.exists(self.tmp_path):
+        if exc_type is not None or os.path.lexists(self.tmp_path):
             self.abort()
+        if exc_type is not None and issubclass(exc_type, Exception) and self.write_failed \
+                and not issubclass(exc_type, OutputWriteError):
+            # whatever broke after a failed write (a read of dropped data) is that failure
+            raise self._write_error(self._disk.error) from None
         return False
 
 

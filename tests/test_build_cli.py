@@ -364,6 +364,8 @@ def test_nan_from_the_sampler_stops_the_build(tmp_path, monkeypatch, capsys):
     (signal.SIGTERM, 143, False, 1_000_000),
     # as soon as the temporary file exists: in testing this once hit the writer's set-up
     (signal.SIGINT, 130, True, 0),   # with --overwrite: the old file must survive
+    # closing the terminal: handled like SIGTERM, 128 + 1
+    (signal.SIGHUP, 129, True, 1_000_000),
 ])
 def test_signal_mid_write_leaves_nothing_behind(tmp_path, signum, status, existing, min_bytes):
     # A single Hernquist halo has a closed-form potential, so the temporary file appears

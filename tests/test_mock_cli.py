@@ -56,6 +56,9 @@ def test_mock_writes_every_file(snapshot, tmp_path, capsys):
     (["--tracer", "halo"], "--tracer"),                      # not a disk
     (["--tracer", "gas"], "--tracer"),                       # no such component
     (["--distance", "-3 Mpc"], "--distance"),
+    # 1 pc puts the disk ~1e6 deg from the centre by the small-angle relation: the
+    # distance is at fault, not the pixels that could never cover it
+    (["--distance", "1 pc"], "--distance"),
     (["--noise", "-0.1"], "--noise"),
     (["--fit-geometry", "loose"], "--fit-geometry"),
     (["--free", "pa,tilt", "--fit-geometry", "global"], "--free"),

@@ -17,6 +17,8 @@ Conventions (the same in the projection and in every fit, so they cannot disagre
   Groningen); v_exp > 0 is an outflow.
 - Angles on the sky follow from lengths by the small-angle relation theta = l / D
   (galaxies subtend well under a degree; the error is ~theta^2/3 ~ 1e-5).
+  :func:`project_particles` refuses a distance at which the tracer would reach beyond
+  MAX_SKY_RADIUS_DEG from the centre, where that relation is off by more than 1 %.
 
 All lengths are kpc, velocities km/s, angles degrees or arcsec as named.
 """
@@ -42,6 +44,12 @@ DEFAULT_CENTRE = (150.0, 30.0)
 MAX_FIT_INCLINATION = 85.0
 #: Gaussian FWHM / sigma = 2 sqrt(2 ln 2).
 FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
+#: Largest sky radius (deg) of the tracer's bulk: the small-angle relation theta = l / D
+#: errs by ~theta^2/3 (arctan series), 1 % at 10 deg.
+MAX_SKY_RADIUS_DEG = 10.0
+#: Fraction of the tracer particles within that radius (the bulk that sets the field of
+#: a cube, cube.FIELD_MASS_FRACTION; stray particles may lie beyond).
+SKY_RADIUS_FRACTION = 0.995
 
 
 def hubble_systemic(distance_mpc):
@@ -254,7 +262,26 @@ def project_particles(position, velocity, geometry):
     # clockwise of it, (-cos PA, sin PA): (major, minor, line of sight) stays right-handed
     east = along * math.sin(pa) - across * math.cos(pa)
     north = along * math.cos(pa) + across * math.sin(pa)
+    _check_small_angle(east, north, geometry)
     return east, north, v_los + geometry.systemic
+
+
+def _check_small_angle(east, north, geometry):
+    """ModelError naming --distance when the tracer's bulk (SKY_RADIUS_FRACTION of its
+    particles) reaches beyond MAX_SKY_RADIUS_DEG: the small-angle projection fails there
+    (and any grid of pixels would be absurd, which is not the pixels' fault)."""
+    if np.size(east) == 0:
+        return
+    extent = float(np.quantile(np.hypot(east, north), SKY_RADIUS_FRACTION))   # kpc
+    radius_deg = math.degrees(extent / (geometry.distance * 1e3))
+    if radius_deg > MAX_SKY_RADIUS_DEG:
+        nearest = extent / math.radians(MAX_SKY_RADIUS_DEG) / 1e3
+        raise ModelError("--distance", f"{geometry.distance:.4g} Mpc",
+                         f"{100 * SKY_RADIUS_FRACTION:g} % of the tracer lies within "
+                         f"{extent:.3g} kpc of the centre, {radius_deg:.3g} deg at this "
+                         f"distance by the small-angle relation the projection uses, which "
+                         f"holds to 1 % up to {MAX_SKY_RADIUS_DEG:g} deg: use at least "
+                         f"{nearest:.3g} Mpc")
 
 
 def deproject(east, north, position_angle, inclination, centre=(0.0, 0.0)):
