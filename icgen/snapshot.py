@@ -65,9 +65,9 @@ FIRST_ID = 1
 H5_CHUNK_ROWS = 16384
 # Particles per read-modify-write step of the velocity pass (bounds its memory).
 PASS_ROWS = 262144
-# Half-mass radii come from a streamed histogram of radii in output length units:
-# 1000 log bins per decade (relative width 0.23 %, then linear interpolation inside
-# the bin) from 1e-6 to 1e7, wide enough for any galaxy in any sane length unit.
+# Half-mass radii come from a streamed histogram of radii in kpc (then converted to the
+# output unit): 1000 log bins per decade (relative width 0.23 %, then linear interpolation
+# inside the bin) from 1e-6 to 1e7 kpc, wide enough for any galaxy.
 _R_LOG_MIN, _R_PER_DECADE = -6.0, 1000
 _R_EDGES = np.logspace(_R_LOG_MIN, 7.0, 13 * _R_PER_DECADE + 1)
 _ROOT_KEYS = ("schema", "schema_version", "length_unit", "velocity_unit", "mass_unit", "G",
@@ -473,11 +473,11 @@ class SnapshotWriter:
         s.mass += m.sum()
         s.mass_x += m @ np.asarray(chunk.position, dtype=np.float64)
         s.mass_v += m @ np.asarray(chunk.velocity, dtype=np.float64)
-        pos = converted["position"].astype(np.float64)
-        r = np.sqrt(np.einsum("ij,ij->i", pos, pos))
+        pos = np.asarray(chunk.position, dtype=np.float64)
+        r = np.sqrt(np.einsum("ij,ij->i", pos, pos))            # kpc
         if r.size:
-            s.r_max = max(s.r_max, float(r.max()))
-        s.r_hist += _radius_histogram(r, converted["mass"].astype(np.float64))
+            s.r_max = max(s.r_max, float(r.max()) * u_.length_scale)
+        s.r_hist += _radius_histogram(r, m)
         g = self._file["particles"][chunk.component]
         for what, out in converted.items():
             g[what][lo:hi] = out
@@ -580,7 +580,8 @@ class SnapshotWriter:
         """Component name -> radius (output length unit) of the sphere about the model
         centre (the origin) holding half its mass, from the written particles."""
         # a single particle is its own centre (the histogram would say "< 1e-6")
-        return {name: 0.0 if s.count == 1 else _half_mass_radius(s.r_hist)
+        return {name: 0.0 if s.count == 1
+                else _half_mass_radius(s.r_hist) * self.units.length_scale
                 for name, s in self.streams.items()}
 
     # ------------------------------------------------------------------ closing
