@@ -124,6 +124,38 @@ def test_hot_gas_without_a_thin_layer_is_refused(tmp_path):
     assert sorted(os.listdir(tmp_path)) == ["model.toml"]
 
 
+def test_gas_far_larger_than_its_galaxy_is_refused(tmp_path):
+    # scale length 1e5 kpc: Sigma ~ 0.1 Msun/kpc2, whose own gravity would hold the gas at
+    # c_s^2/(pi G Sigma) ~ 2e8 kpc (Spitzer 1942): the vertical iteration used to diverge
+    # into NaN and a traceback
+    model = write_model(tmp_path, {"halo": HALO, "gas": {**GAS, "scale_length": "1e5 kpc"}})
+    status, _, err = run("build", model, "-o", tmp_path / "x.h5")
+    assert status == 2 and len(err.strip().splitlines()) == 1
+    assert "components.gas.temperature: " in err and "no thin hydrostatic gas layer" in err
+    assert sorted(os.listdir(tmp_path)) == ["model.toml"]
+
+
+EDGES = [
+    # values at the edges of their ranges that must build
+    {"halo": HALO, "disk": {**DISK, "mass": "1e16 Msun", "scale_length": "1e-5 kpc",
+                            "scale_height": "1e-6 kpc"}},
+    {"halo": {**HALO, "concentration": 1000}, "disk": {**DISK, "toomre_q": 1e-300}},
+    # a 1 Msun halo 2 pc across inside a disk: the total potential is flat to rounding at
+    # its centre (a zero-width Eddington interval used to divide by zero)
+    {"halo": {**HALO, "mass": "1 Msun"}, "disk": DISK},
+    {"halo": HALO, "gas": {**GAS, "temperature": "1 K"}},
+    {"disk": DISK, "bh": {"kind": "point_mass", "mass": "1e16 Msun"}},
+]
+
+
+@pytest.mark.parametrize("components", EDGES)
+def test_values_at_the_edges_of_their_ranges_build(tmp_path, components):
+    model = write_model(tmp_path, components)
+    status, _, err = run("build", model, "-o", tmp_path / "x.h5", "--quiet")
+    assert status == 0, err
+    assert sorted(os.listdir(tmp_path)) == ["model.toml", "x.h5"]
+
+
 def test_thin_layer_limit_lies_between_warm_and_hot_gas():
     # measured (potential/gas_solver.py): 3e5 K gas makes a layer 0.23 R_d thick in this
     # galaxy, 2e6 K gas one of 2.1 R_d; the limit 0.5 R_d must keep the first, refuse the other

@@ -75,13 +75,20 @@ def _check_thin_layer(gas, potentials):
         return
     f_r = sum(p.evaluate(np.array([gas.R_d]), np.zeros(1), exact=True)[1][0] for p in potentials)
     v_c = float(np.sqrt(max(-gas.R_d * f_r, 0.0)))
+    raise _no_layer(gas, f"c_s = {gas.cs:.4g} km/s against v_c = {v_c:.4g} km/s gives a scale "
+                         f"height of {height:.4g} kpc at R_d = {gas.R_d:.4g} kpc, above "
+                         f"{MAX_LAYER_HEIGHT:g} x scale_length")
+
+
+def _no_layer(gas, why):
+    """ModelError naming the key that set the sound speed: no thin gas layer, and why."""
     key = gas.spec.sound_speed_key
     shown = f"{getattr(gas.spec, key):.6g} {'K' if key == 'temperature' else 'km/s'}"
-    raise ModelError(
-        f"components.{gas.name}.{key}", shown,
-        f"no thin hydrostatic gas layer: c_s = {gas.cs:.4g} km/s against v_c = {v_c:.4g} km/s "
-        f"gives a scale height of {height:.4g} kpc at R_d = {gas.R_d:.4g} kpc, above "
-        f"{MAX_LAYER_HEIGHT:g} x scale_length; lower the temperature or add mass to hold it")
+    spitzer = gas.cs**2 / (np.pi * G * gas.surface_density(gas.R_d))
+    return ModelError(f"components.{gas.name}.{key}", shown,
+                      f"no thin hydrostatic gas layer: {why} (its own gravity alone would hold "
+                      f"it at c_s^2/(pi G Sigma) = {spitzer:.4g} kpc at R_d = {gas.R_d:.4g} kpc, "
+                      f"Spitzer 1942); lower the temperature or add mass to hold it")
 
 
 def solve_gas(gas_specs, others):
@@ -115,6 +122,8 @@ def solve_gas(gas_specs, others):
         for gas in gases:
             old = gas.midplane.copy()
             q_new = _q_on_nodes(fns, gas)
+            if not np.isfinite(q_new).all():
+                raise _no_layer(gas, "the vertical iteration diverged")
             gas.set_vertical(gas.q_nodes + RELAXATION * (q_new - gas.q_nodes))
             alive = gas.surface_density(gas.R_nodes) > 1e-6 * gas.sigma0
             change = max(change, float(np.max(np.abs(gas.midplane[alive] / old[alive] - 1))))

@@ -66,8 +66,12 @@ def eddington_sum(psi, g, h_end):
         s = 0.0
         sabs = 0.0
         for i in range(j, n - 1):
-            a = e - psi[i]
-            b = e - psi[i + 1]
+            # Psi flat to rounding (a light, small component inside the others' core) or
+            # rising by an ulp: such an interval spans no energy and adds nothing
+            a = max(e - psi[i], 0.0)
+            b = max(e - psi[i + 1], 0.0)
+            if b <= a:
+                continue
             sa = math.sqrt(a)
             sb = math.sqrt(b)
             d = sa + sb
@@ -78,7 +82,7 @@ def eddington_sum(psi, g, h_end):
             term = g[i] * i0 + (g[i + 1] - g[i]) * i1
             s += term
             sabs += abs(term)
-        tail = h_end / math.sqrt(e - psi[n - 1])
+        tail = h_end / math.sqrt(e - psi[n - 1]) if e > psi[n - 1] else 0.0
         f[j] = EDDINGTON_NORM * (s + tail)
         scale[j] = EDDINGTON_NORM * (sabs + abs(tail))
     return f, scale
