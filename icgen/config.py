@@ -131,8 +131,8 @@ _VALUE_KINDS = {
     "mean_molecular_weight": Field("number", lo=0.5, hi=4.0),
     # an ideal gas has 1 < gamma <= 5/3 (monatomic); 1e-6 slack for "1.6666667"
     "adiabatic_index": Field("number", lo=1.0, hi=5.0 / 3.0 * (1 + 1e-6), lo_open=True),
-    # Q: any cold disk is allowed (Q < 1 is warned about, see model_warnings); above 100
-    # sigma_R would exceed v_c many times over in any disk
+    # Q: any cold disk is allowed (Q < 1 is warned about, see model_warnings); stellar
+    # disks have Q ~ 1-3 (common practice), 100 is far beyond any (and keeps sigma^2 finite)
     "toomre_q": Field("number", lo=0.0, hi=100.0, lo_open=True),
     "toomre_q_min": Field("number", lo=0.0, hi=100.0, lo_open=True),
     # sigma_R / sigma_z is 1-3 in observed disks (common practice, from memory)
@@ -193,7 +193,7 @@ _SPHEROID_SHAPE_FIELDS = ("mass", "scale_radius", "concentration", "density_scal
 #:   0.005   -                 75     50         6.1    11 (F_z of the wrong sign: the
 #:                                                         sampler then produced NaN)
 #: (the F_z errors at R_t = 20 kpc, where F_z is small, do not depend on w). A taper holding
-#: more mass (small R_t/R_d) needs the wider cut: 0.1 keeps F_R within 7e-4 everywhere.
+#: more mass (small R_t/R_d) needs the wider cut: 0.1 keeps F_R within 7e-4 in every case.
 MIN_TAPER_WIDTH_FRACTION = 0.1
 
 #: Smallest truncation_width / outer_radius of the exponential cut of Kazantzidis,
@@ -202,7 +202,8 @@ MIN_TAPER_WIDTH_FRACTION = 0.1
 #: function of the halo is negative for orbits just outside the cut: d2rho/dPsi2 < 0
 #: there, as the density falls on r_d while Psi changes on r_t. Measured (f(E) by
 #: Eddington's formula on a grid of 4000 nodes across the cut, halo in its own potential;
-#: doubling the grid moved the limits by < 1 %):
+#: doubling the grid moved the limits by < 1 %; tests/test_model_limits.py checks them
+#: again with the independent oracle tests/reference/eddington_cut.py):
 _MIN_CUT_RATIO = (1.05, 1.2, 1.5, 2.0, 3.0, 5.0, 10.0, 30.0, 100.0, 300.0)
 _MIN_CUT_FRACTION = {
     "nfw": (0.0721, 0.0684, 0.0630, 0.0572, 0.0512, 0.0462, 0.0425, 0.0402, 0.0397, 0.0398),

@@ -206,9 +206,11 @@ def _uncomment_block(text, header):
 def test_starter_alternatives_load_when_uncommented():
     text = _uncomment_block(STARTER_TOML, "[components.thick_disk]")
     text = _uncomment_block(text, "[components.black_hole]")
+    text = _uncomment_block(text, "[components.gas]")
     spec = spec_from_toml_text(text)
     assert spec.component("thick_disk").vertical == "exponential"
     assert spec.component("black_hole").particles == 1
+    assert spec.component("gas").temperature == 1e4
     # The cored halo replaces the NFW one: drop the active [components.halo] table first.
     start = text.index("[components.halo]")
     text = text[:start] + text[text.index("# A cored halo"):]
