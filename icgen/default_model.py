@@ -50,7 +50,9 @@ STARTER_TOML = """\
 # Every dimensional value is a string with a unit that astropy understands:
 # "3.2 kpc", "800 pc", "5e10 Msun", "1e7 Msun/kpc3". A bare number for such a key is an
 # error, never a guess. Dimensionless keys (concentration, toomre_q, toomre_q_min,
-# sigma_ratio, spin, redshift, seed, particles) are plain numbers. Unknown keys are errors.
+# sigma_ratio, retrograde_flip_fraction, redshift, seed, particles) are plain numbers.
+# Unknown keys are errors. Every value has a physical range, named in the error if it is
+# left: masses 1 to 1e16 Msun, lengths 1e-6 to 1e5 kpc, particles 1 to 1e10, ...
 
 [model]
 name = "my spiral"          # free text, stored in the snapshot
@@ -73,7 +75,7 @@ mass_unit = "1e10 Msun"     # a scaled unit is fine
 
 # ---------------------------------------------------------------- dark halo
 [components.halo]           # the table name ("halo") names the component
-kind = "halo"               # halo | bulge | disk | point_mass
+kind = "halo"               # halo | bulge | disk | gas_disk | point_mass
 profile = "nfw"             # nfw | hernquist | plummer | pseudo_isothermal | burkert
 mass = "1.0e12 Msun"        # nfw: M200, the mass inside r200 (mean density 200 x critical)
 concentration = 10          # nfw: c = r200 / r_s, must be > 1
@@ -81,11 +83,13 @@ concentration = 10          # nfw: c = r200 / r_s, must be > 1
 # density_scale = "8e6 Msun/kpc3"   # nfw rho_s
 # scale_radius = "20 kpc"           # nfw r_s
 # outer_radius = "250 kpc"          # where the exponential cut starts (nfw default: r200)
-# truncation_width = "25 kpc"       # decay length of the cut (default 0.1 x outer radius)
+# truncation_width = "25 kpc"       # decay length of the cut (default 0.1 x outer radius;
+                                    # at least ~0.05 x outer radius, see the error if not)
 particles = 600_000         # whole number >= 1; underscores are fine
 velocities = "eddington"    # eddington (isotropic distribution function, default) | jeans
 # anisotropy_radius = "30 kpc"      # Osipkov-Merritt radius: radial orbits outside it
-spin = 0.0                  # 0..1: fraction of counter-rotating orbits flipped to co-rotating
+retrograde_flip_fraction = 0.0  # 0..1: fraction of retrograde orbits whose rotation is
+                                # reversed (net rotation; the model stays in equilibrium)
 
 # A cored halo instead of the NFW one:
 # [components.halo]
@@ -105,11 +109,13 @@ scale_length = "3.0 kpc"
 scale_height = "0.3 kpc"    # must be smaller than scale_length
 vertical = "sech2"          # sech2 (isothermal sheet) | exponential
 toomre_q = 1.5              # Toomre Q at toomre_q_radius; give exactly one of
-# toomre_q_radius = "7.5 kpc"  # toomre_q, toomre_q_min or sigma_ratio (default 2.5 x scale_length)
+# toomre_q_radius = "7.5 kpc"  # toomre_q, toomre_q_min or sigma_ratio (default 2.5 x
+                               # scale_length; within 0.1 to 10 scale lengths)
 # toomre_q_min = 1.2        # or: the minimum Q over the disk
 # sigma_ratio = 1.5         # or: sigma_R / sigma_z everywhere
 # taper_radius = "25 kpc"   # optional outer taper, beyond scale_length,
-# taper_width = "1.5 kpc"   # over this width (default 0.5 x scale_length)
+# taper_width = "2.5 kpc"   # over this width (default 0.5 x scale_length; at least
+                            # 0.1 x taper_radius, the narrowest the potential resolves)
 particles = 300_000
 
 # A thick disk is just a second disk component:
@@ -129,6 +135,15 @@ profile = "hernquist"       # total mass and scale radius a; or "plummer" (scale
 mass = "1.0e10 Msun"
 scale_radius = "0.6 kpc"
 particles = 100_000
+
+# An isothermal gas disk in vertical hydrostatic equilibrium in the total potential:
+# [components.gas]
+# kind = "gas_disk"
+# mass = "8e9 Msun"
+# scale_length = "5 kpc"
+# temperature = "1e4 K"     # or sound_speed = "10 km/s"; the gas must settle into a thin
+#                           # layer (scale height at scale_length below half of it)
+# particles = 100_000
 
 # A central black hole, one particle at the centre:
 # [components.black_hole]

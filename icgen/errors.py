@@ -1,11 +1,17 @@
 """Errors raised for bad user input (model files, unit strings, API arguments)."""
 
 import difflib
+import reprlib
 
 __all__ = ["ModelError", "MISSING", "show_value", "did_you_mean"]
 
 # Longest value shown in a message; a model file can hold a very long string.
 _MAX_SHOWN = 80
+# repr of a huge table or string would cost time and memory for 80 characters: reprlib
+# stops early (a few items per container, strings cut to their ends).
+_REPR = reprlib.Repr()
+_REPR.maxlevel, _REPR.maxstring, _REPR.maxother, _REPR.maxlong = 3, _MAX_SHOWN, _MAX_SHOWN, 40
+_REPR.maxdict = _REPR.maxlist = _REPR.maxtuple = _REPR.maxset = 4
 
 
 class _Missing:
@@ -26,7 +32,7 @@ def show_value(value):
     list) is described instead.
     """
     try:
-        text = repr(value)
+        text = _REPR.repr(value)
     except (ValueError, RecursionError):
         text = f"<unprintable {type(value).__name__}>"
     # repr of a str escapes newlines already; other reprs might not.

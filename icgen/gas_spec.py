@@ -55,24 +55,25 @@ class GasDiskSpec:
         p = f"components.{self.name}."
         c._choice(p + "kind", self.kind, ("gas_disk",))
         c._choice(p + "profile", self.profile, ("exponential",))
-        c._set(self, "mass", c._positive(p + "mass", self.mass, "Msun"))
-        rd = c._positive(p + "scale_length", self.scale_length, "kpc")
+        c._set(self, "mass", c._value(p, "mass", self.mass))
+        rd = c._value(p, "scale_length", self.scale_length)
         c._set(self, "scale_length", rd)
         c.DiskSpec._check_taper(self, p, rd)
         given = [k for k in ("temperature", "sound_speed") if getattr(self, k) is not None]
         if len(given) != 1:
             rule = "give exactly one of temperature (e.g. '8000 K') or sound_speed (e.g. '10 km/s')"
             raise ModelError(p + "temperature", MISSING if not given else self.temperature, rule)
-        unit = "K" if given[0] == "temperature" else "km/s"
-        c._set(self, given[0], c._positive(p + given[0], getattr(self, given[0]), unit))
+        c._set(self, given[0], c._value(p, given[0], getattr(self, given[0])))
         c._set(self, "mean_molecular_weight",
-               c._positive(p + "mean_molecular_weight", self.mean_molecular_weight))
-        gamma = c._number(p + "adiabatic_index", self.adiabatic_index)
-        if gamma <= 1:
-            raise ModelError(p + "adiabatic_index", gamma, "must be > 1 (5/3 for a monatomic gas)")
-        c._set(self, "adiabatic_index", gamma)
+               c._value(p, "mean_molecular_weight", self.mean_molecular_weight))
+        c._set(self, "adiabatic_index", c._value(p, "adiabatic_index", self.adiabatic_index))
         if self.particles is not None:
-            c._set(self, "particles", c._count(p + "particles", self.particles, 1))
+            c._set(self, "particles", c._value(p, "particles", self.particles))
+
+    @property
+    def sound_speed_key(self):
+        """The model-file key that set the sound speed: "temperature" or "sound_speed"."""
+        return "temperature" if self.sound_speed is None else "sound_speed"
 
     @property
     def cs(self):

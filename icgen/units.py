@@ -53,6 +53,13 @@ _EXAMPLES = {
 
 _UNIT_EXAMPLES = {"length": "kpc", "velocity": "km/s", "mass": "1e10 Msun", "time": "Gyr"}
 
+# Longest unit or quantity string read: "1.23456789e+10 Msun/kpc3" has 24 characters; a
+# longer text is no number with a unit (and astropy's parser is slow on megabytes).
+MAX_QUANTITY_TEXT = 100
+# Output units scale the written numbers: within 1e40 of the internal unit (kg is 2e30
+# Msun, cm 3e21 kpc) no value of a model (masses up to 1e16 Msun) can overflow a double.
+UNIT_SCALE_RANGE = (1e-40, 1e40)
+
 # What astropy's parser raises for bad text: ValueError and TypeError in practice (seen
 # by fuzzing astropy 8); UnitsError and ArithmeticError for safety.
 _PARSE_ERRORS = (ValueError, TypeError, ArithmeticError, u.UnitsError)
@@ -94,23 +101,38 @@ def parse_quantity(value, key, unit):
     Raises
     ------
     ModelError
-        For a bare number, a bool, a non-string, text astropy cannot parse, a unit of the
-        wrong physical type, or a non-finite value.
+        For a bare number, a bool, a non-string, text astropy cannot parse (or longer than
+        MAX_QUANTITY_TEXT), a unit of the wrong physical type, a non-finite value, or a
+        temperature below absolute zero.
+
+    Temperatures may be given in kelvin or degrees Celsius ("-10 deg_C" is 263.15 K),
+    converted with astropy's temperature equivalency.
     """
     kind, example = _describe(unit)
     hint = f"give a string with a unit, e.g. {example}"
     if not isinstance(value, str):
         raise ModelError(key, value, f"must be {kind}; {hint}")
+    if len(value) > MAX_QUANTITY_TEXT:
+        raise ModelError(key, value, f"too long for a number with a unit "
+                                     f"({len(value)} characters); {hint}")
     try:
         quantity = u.Quantity(value)
     except _PARSE_ERRORS as exc:
         raise ModelError(key, value, f"not a number with a unit ({_first_sentence_of(exc)}); {hint}")
+    # Celsius converts to kelvin only through the temperature equivalency (an offset).
+    equivalencies = u.temperature() if unit == u.K else []
     # Function units (dex, mag) convert non-linearly: not what a model file means.
-    if not isinstance(quantity.unit, u.UnitBase) or not quantity.unit.is_equivalent(unit):
-        raise ModelError(key, value, f"must be {kind}, not {quantity.unit.physical_type}; {hint}")
-    number = float(quantity.to_value(unit))
+    if not isinstance(quantity.unit, u.UnitBase) \
+            or not quantity.unit.is_equivalent(unit, equivalencies=equivalencies):
+        wrong = quantity.unit.physical_type if isinstance(quantity.unit, u.UnitBase) \
+            else quantity.unit
+        raise ModelError(key, value, f"must be {kind}, not {wrong}; {hint}")
+    number = float(quantity.to_value(unit, equivalencies=equivalencies))
     if not math.isfinite(number):
         raise ModelError(key, value, f"must be finite; {hint}")
+    if unit == u.K and number < 0:
+        raise ModelError(key, value, f"is below absolute zero ({number:.6g} K); a temperature "
+                                     f"is positive in kelvin, e.g. {example}")
     return number
 
 
@@ -170,7 +192,8 @@ def unit_scale(unit_string, physical_type, key):
     internal = INTERNAL_UNITS[physical_type]
     example = _UNIT_EXAMPLES.get(physical_type, internal.to_string())
     rule = f"must be a {physical_type} unit astropy can parse, e.g. '{example}'"
-    if not isinstance(unit_string, str) or not unit_string.isprintable():
+    if not isinstance(unit_string, str) or not unit_string.isprintable() \
+            or len(unit_string) > MAX_QUANTITY_TEXT:
         raise ModelError(key, unit_string, rule)
     try:
         unit = u.Unit(unit_string)
@@ -179,6 +202,8 @@ def unit_scale(unit_string, physical_type, key):
     if not isinstance(unit, u.UnitBase) or not unit.is_equivalent(internal):
         raise ModelError(key, unit_string, rule)
     factor = float(internal.to(unit))
-    if not (math.isfinite(factor) and factor > 0):
-        raise ModelError(key, unit_string, f"{rule}, with a positive finite scale")
+    lo, hi = UNIT_SCALE_RANGE
+    if not (math.isfinite(factor) and lo <= factor <= hi):
+        raise ModelError(key, unit_string, f"{rule}, between {lo:g} and {hi:g} times "
+                                           f"{internal.to_string()}")
     return factor

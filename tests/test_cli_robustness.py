@@ -271,13 +271,20 @@ def test_reading_commands_refuse_to_overwrite_their_snapshot(tiny_snapshot, tmp_
 
 
 def test_a_trillion_particles_is_refused_before_sampling(tmp_path, monkeypatch, capsys):
-    model = halo_model(tmp_path, particles="1_000_000_000_000")
     monkeypatch.setattr("icgen.sampling.realize.samplers", lambda *a: pytest.fail("sampled"))
+    # beyond the range of a component's particle count: the model file is refused
+    model = halo_model(tmp_path, particles="1_000_000_000_000")
     assert main(["build", model, "-o", str(tmp_path / "g.h5")]) == 2
-    # 1e12 x (3 + 3 + 1) float64 + 1e12 uint64 ids = 64 TB at the least
-    err = one_line_error(capsys, "--output", "1,000,000,000,000 particles", "free")
+    one_line_error(capsys, "components.halo.particles", "1e+10")
+    # within the range, 1e10 particles are refused by the size check before any sampling:
+    # 1e10 x (3 + 3 + 1) float64 + 1e10 uint64 ids = 640 GB at the least
+    model = halo_model(tmp_path, particles="10_000_000_000")
+    monkeypatch.setattr("icgen.build.shutil.disk_usage",
+                        lambda p: namedtuple("Usage", "total used free")(10**12, 0, 10**11))
+    assert main(["build", model, "-o", str(tmp_path / "g.h5")]) == 2
+    err = one_line_error(capsys, "--output", "10,000,000,000 particles", "free")
     need = float(err.split("needs about ")[1].split()[0])
-    assert err.split("needs about ")[1].split()[1] == "TB" and need >= 64.0
+    assert err.split("needs about ")[1].split()[1] == "GB" and need >= 640.0
     assert os.listdir(tmp_path) == ["halo.toml"]
 
 
@@ -472,15 +479,17 @@ def test_closed_pipe_of_a_real_process_is_harmless(tmp_path):
 
 @pytest.mark.parametrize("output, precision, key", [
     # G = 4.3e-6 kpc (km/s)^2/Msun (astropy.constants) is 4.3e304 in 1e-300 kpc per
-    # 1e10 Msun, but astropy's conversion through SI overflows: the file got G = inf
-    ('[output]\nlength_unit = "1e-300 kpc"', "double", "output:"),
+    # 1e10 Msun, but astropy's conversion through SI overflows: the file got G = inf; the
+    # model file's range of unit scales (1e-40 to 1e40) now refuses it first
+    ('[output]\nlength_unit = "1e-300 kpc"', "double", "output.length_unit"),
     # 1e7 kpc in 1e-32 kpc is 1e39, beyond the float32 maximum 3.4e38 (IEEE 754)
     ('[output]\nlength_unit = "1e-32 kpc"', "single", "output.length_unit"),
     # a speed of 1e-3 km/s in units of 1e306 km/s is 1e-309, below the smallest normal
     # float64, 2.2e-308 (IEEE 754)
     ('[output]\nvelocity_unit = "1e306 km/s"', "double", "output.velocity_unit"),
-    # (1e-200 km/s)^2 has a scale of 0: astropy cannot even form the unit of G
-    ('[output]\nvelocity_unit = "1e-200 km/s"', "double", "output:"),
+    # (1e-200 km/s)^2 has a scale of 0: astropy cannot even form the unit of G (refused by
+    # the model file's range of unit scales)
+    ('[output]\nvelocity_unit = "1e-200 km/s"', "double", "output.velocity_unit"),
 ])
 def test_units_that_overflow_are_refused_before_any_work(tmp_path, monkeypatch, capsys,
                                                          output, precision, key):

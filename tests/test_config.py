@@ -122,6 +122,30 @@ def test_parse_quantity_rejects_bad_values(value):
         assert "give a string with a unit, e.g. '3 kpc'" in str(exc_info.value)
 
 
+@pytest.mark.parametrize("text, kelvin", [("-10 deg_C", 263.15), ("1e4 K", 1e4), ("0 deg_C", 273.15)])
+def test_temperatures_in_celsius_convert_to_kelvin(text, kelvin):
+    # The Celsius scale is the kelvin scale shifted by 273.15 (its definition); astropy's
+    # temperature equivalency applies it. 1e-12: float rounding.
+    assert parse_quantity(text, "components.gas.temperature", u.K) == pytest.approx(kelvin, rel=1e-12)
+
+
+@pytest.mark.parametrize("text", ["-300 deg_C", "-5 K", "-1e-3 K"])
+def test_temperatures_below_absolute_zero_are_named_as_such(text):
+    with pytest.raises(ModelError) as exc_info:
+        parse_quantity(text, "components.gas.temperature", u.K)
+    assert_one_line_error(exc_info, "components.gas.temperature")
+    assert "is below absolute zero" in str(exc_info.value)
+    assert "not temperature" not in str(exc_info.value)
+
+
+def test_long_quantity_and_unit_strings_are_refused_unparsed():
+    with pytest.raises(ModelError, match="too long for a number with a unit"):
+        parse_quantity("1" * 10**6 + " kpc", "components.disk.scale_length", u.kpc)
+    with pytest.raises(ModelError) as exc_info:
+        unit_scale("k" * 10**6, "length", "output.length_unit")
+    assert len(str(exc_info.value)) < 300
+
+
 def test_unit_scale():
     # 1 Msun is 1e-10 of "1e10 Msun"; 1 kpc is 1000 pc; 1 km/s is 1000 m/s.
     assert unit_scale("1e10 Msun", "mass", "output.mass_unit") == pytest.approx(1e-10, rel=1e-12)
@@ -130,7 +154,8 @@ def test_unit_scale():
     assert unit_scale("kpc", "length", "output.length_unit") == 1.0
 
 
-@pytest.mark.parametrize("text", ["kpc", "Msunn", "", "dex(Msun)", "-1 Msun", 1e10, None, "Msun\n"])
+@pytest.mark.parametrize("text", ["kpc", "Msunn", "", "dex(Msun)", "-1 Msun", 1e10, None, "Msun\n",
+                                  "1e-300 Msun", "1e50 Msun"])
 def test_unit_scale_rejects_bad_mass_units(text):
     with pytest.raises(ModelError) as exc_info:
         unit_scale(text, "mass", "output.mass_unit")
@@ -181,9 +206,11 @@ def _uncomment_block(text, header):
 def test_starter_alternatives_load_when_uncommented():
     text = _uncomment_block(STARTER_TOML, "[components.thick_disk]")
     text = _uncomment_block(text, "[components.black_hole]")
+    text = _uncomment_block(text, "[components.gas]")
     spec = spec_from_toml_text(text)
     assert spec.component("thick_disk").vertical == "exponential"
     assert spec.component("black_hole").particles == 1
+    assert spec.component("gas").temperature == 1e4
     # The cored halo replaces the NFW one: drop the active [components.halo] table first.
     start = text.index("[components.halo]")
     text = text[:start] + text[text.index("# A cored halo"):]
@@ -203,24 +230,25 @@ def test_round_trip_keeps_every_optional_field():
     data["output"].update(length_unit="pc", mass_unit="Msun")
     data["components"]["disk"].update(taper_radius="20 kpc", toomre_q_radius="6 kpc", vertical="exponential")
     data["components"]["halo"].update(outer_radius="300 kpc", truncation_width="20 kpc",
-                                      anisotropy_radius="40 kpc", spin=0.25, velocities="jeans")  # fmt: skip
+                                      anisotropy_radius="40 kpc", retrograde_flip_fraction=0.25,
+                                      velocities="jeans")  # fmt: skip
     del data["components"]["bulge"]["particles"]
     data["components"]["core"] = {"kind": "halo", "profile": "pseudo_isothermal", "mass": "1e11 Msun",
                                   "core_radius": "4 kpc", "outer_radius": "100 kpc", "particles": 5}  # fmt: skip
     data["components"]["bh"] = {"kind": "point_mass", "mass": "4e6 Msun"}
     spec = spec_from_dict(data)
-    assert spec.component("disk").taper_width == pytest.approx(1.5)  # default 0.5 scale lengths
+    # default 0.5 scale lengths (1.5 kpc), raised to the smallest resolved width, 0.1 x 20 kpc
+    assert spec.component("disk").taper_width == pytest.approx(2.0)
     assert spec.component("bulge").particles is None
     assert spec_from_toml_text(spec.to_toml()) == spec
 
 
-positive_floats = st.floats(min_value=1e-300, max_value=1e300)
-
-
 @settings(max_examples=60, deadline=None)
-@given(mass=positive_floats, rd=positive_floats, ratio=st.floats(0.001, 0.999), q=positive_floats,
-       rho=positive_floats, rs=positive_floats)  # fmt: skip
+@given(mass=st.floats(1.0, 1e16), rd=st.floats(1e-3, 1e5), ratio=st.floats(0.001, 0.999),
+       q=st.floats(1e-300, 100.0), rho=st.floats(1e5, 1e12), rs=st.floats(1e-6, 1e5))  # fmt: skip
 def test_round_trip_is_exact_for_any_floats(mass, rd, ratio, q, rho, rs):
+    # any floats inside the ranges of the keys (an NFW rho_s of 1e5..1e12 Msun/kpc3 gives a
+    # concentration between 1 and 1000 for Planck18 at z = 0)
     disk = DiskSpec("disk", mass, rd, rd * ratio, toomre_q_min=q, particles=7)
     halo = SpheroidSpec("halo", "halo", "nfw", density_scale=rho, scale_radius=rs, particles=3)
     spec = ModelSpec("random", 0, (disk, halo), particle_mass=mass)
@@ -249,9 +277,10 @@ BAD_INPUTS = [
     # (mutation, key named in the error, text the message must contain)
     (_set("components.disk.scale_length", "3"), "components.disk.scale_length", "unit"),
     (_set("components.disk.scale_length", 3.0), "components.disk.scale_length", "e.g. '3 kpc'"),
-    (_set("components.disk.mass", "-4.5e10 Msun"), "components.disk.mass", "> 0"),
-    (_set("components.halo.mass", "0 Msun"), "components.halo.mass", "> 0"),
-    (_set("components.disk.scale_length", "0 kpc"), "components.disk.scale_length", "> 0"),
+    (_set("components.disk.mass", "-4.5e10 Msun"), "components.disk.mass", "between 1 and 1e+16 Msun"),
+    (_set("components.halo.mass", "0 Msun"), "components.halo.mass", "between 1 and 1e+16 Msun"),
+    (_set("components.disk.scale_length", "0 kpc"), "components.disk.scale_length",
+     "between 1e-06 and 1e+05 kpc"),
     (_set("components.disk.scale_lenght", "3 kpc"), "components.disk.scale_lenght", "did you mean 'scale_length'?"),
     (_set("components.halo.concentrashun", 10), "components.halo.concentrashun", "did you mean 'concentration'?"),
     (_set("model.sed", 3), "model.sed", "did you mean 'seed'?"),
@@ -261,7 +290,7 @@ BAD_INPUTS = [
     (_set("components.disk.toomre_q", "1.5"), "components.disk.toomre_q", "must be a number"),
     (_set("components.disk.particles", True), "components.disk.particles", "whole number"),
     (_set("components.disk.particles", 1e5), "components.disk.particles", "whole number"),
-    (_set("components.disk.particles", 0), "components.disk.particles", ">= 1"),
+    (_set("components.disk.particles", 0), "components.disk.particles", "from 1 to 1e+10"),
     (_set("components.disk.scale_height", "5 kpc"), "components.disk.scale_height",
      "got '5 kpc'; must be smaller than scale_length (3 kpc)"),
     (_set("components.disk.vertical", "gaussian"), "components.disk.vertical", "sech2, exponential"),
@@ -279,9 +308,12 @@ BAD_INPUTS = [
     (_set("components.bulge.outer_radius", "0.5 kpc"), "components.bulge.outer_radius", "larger than scale_radius"),
     (_set("components.bulge.concentration", 5), "components.bulge.concentration", "profile 'hernquist'"),
     (_set("components.bulge.scale_radius", DELETE), "components.bulge.scale_radius", "required for profile"),
-    (_set("components.halo.spin", 1.5), "components.halo.spin", "between 0 and 1"),
+    (_set("components.halo.retrograde_flip_fraction", 1.5), "components.halo.retrograde_flip_fraction",
+     "between 0 and 1"),
+    # the key's earlier name points to the new one
+    (_set("components.halo.spin", 0.5), "components.halo.spin", "renamed: use retrograde_flip_fraction"),
     (_set("components.halo.velocities", "jean"), "components.halo.velocities", "did you mean 'jeans'?"),
-    (_set("components.halo.anisotropy_radius", "-1 kpc"), "components.halo.anisotropy_radius", "> 0"),
+    (_set("components.halo.anisotropy_radius", "-1 kpc"), "components.halo.anisotropy_radius", "between"),
     (_set("components.halo.kind", "gas_disk"), "components.halo.concentration", "unknown key for a gas_disk"),
     (_set("components.halo.kind", DELETE), "components.halo.kind", "missing"),
     (_set("components.halo.profile", "NFW"), "components.halo.profile", "did you mean 'nfw'?"),
@@ -292,7 +324,7 @@ BAD_INPUTS = [
     (_set("components.disk", 5), "components.disk", "must be a table"),
     (_set("model.seed", -1), "model.seed", ">= 0"),
     (_set("model.seed", "1"), "model.seed", "whole number"),
-    (_set("model.redshift", -0.5), "model.redshift", ">= 0"),
+    (_set("model.redshift", -0.5), "model.redshift", "between 0 and 20"),
     (_set("model.cosmology", "Planck2018"), "model.cosmology", "did you mean 'Planck18'?"),
     (_set("model.name", ""), "model.name", "non-empty"),
     (_set("model.mirror", 1), "model.mirror", "true or false"),
@@ -302,6 +334,28 @@ BAD_INPUTS = [
     (_set("output.length_unit", "parsec s"), "output.length_unit", "length unit"),
     (_set("output.velocity_unit", "kms"), "output.velocity_unit", "velocity unit"),
     (_set("output", "kpc"), "output", "must be a table"),
+    # ranges and rules between keys (tests/test_model_limits.py runs the commands on more)
+    (lambda d: d["components"]["disk"].update(taper_radius="3.6 kpc", taper_width="0.4 kpc"),
+     "components.disk.toomre_q_radius", "the default 2.5 x scale_length = 7.5 kpc lies beyond the taper"),
+    (_set("components.disk.toomre_q", 150), "components.disk.toomre_q", "must be > 0 and at most 100"),
+    (lambda d: d["components"]["disk"].update(toomre_q=None, sigma_ratio=50.0),
+     "components.disk.sigma_ratio", "between 0.1 and 10"),
+    (_set("components.disk.particles", 10**11), "components.disk.particles", "from 1 to 1e+10"),
+    (_set("components.halo.concentration", 2000), "components.halo.concentration", "at most 1000"),
+    (_set("components.halo.outer_radius", "5 kpc"), "components.halo.outer_radius",
+     "larger than the NFW scale radius r_s = r200/c = 21"),
+    (_set("model.redshift", 30.0), "model.redshift", "between 0 and 20"),
+    (_set("model.name", "x" * 201), "model.name", "at most 200 characters long (got 201)"),
+    (_set("output.length_unit", "1e-50 kpc"), "output.length_unit", "between 1e-40 and 1e+40 times kpc"),
+    (_set("components.gas", {"kind": "gas_disk", "mass": "1e9 Msun", "scale_length": "3 kpc",
+                             "temperature": "0 K", "particles": 10}),
+     "components.gas.temperature", "must be between 1 and 1e+09 K"),
+    (_set("components.gas", {"kind": "gas_disk", "mass": "1e9 Msun", "scale_length": "3 kpc",
+                             "temperature": "1e4 K", "adiabatic_index": 2.0, "particles": 10}),
+     "components.gas.adiabatic_index", "must be > 1 and at most 1.66667"),
+    (_set("components.gas", {"kind": "gas_disk", "mass": "1e9 Msun", "scale_length": "3 kpc",
+                             "temperature": "1e4 K", "mean_molecular_weight": 0.1, "particles": 10}),
+     "components.gas.mean_molecular_weight", "between 0.5 and 4"),
 ]  # fmt: skip
 
 
@@ -313,6 +367,58 @@ def test_bad_input_raises_one_line_model_error(mutate, key, text):
         spec_from_dict(data)
     assert_one_line_error(exc_info, key)
     assert text in str(exc_info.value)
+
+
+def test_every_key_has_a_row_with_a_range():
+    # one table drives the checks: every key a model file may hold has a row, and every
+    # numeric row has a range whose message names it
+    from icgen.gas_spec import GAS_KEYS
+    keys = set(config._MODEL_KEYS + config._OUTPUT_KEYS + config._DISK_KEYS + GAS_KEYS
+               + config._POINT_MASS_KEYS + config._SPHEROID_COMMON_KEYS)
+    keys |= {k for ks in config._PROFILE_KEYS.values() for k in ks}
+    assert keys <= set(config._VALUE_KINDS)
+    for key, field in config._VALUE_KINDS.items():
+        if field.kind in ("quantity", "number", "count"):
+            assert field.lo is not None and field.hi is not None and field.lo < field.hi, key
+        if field.kind == "quantity":
+            assert field.rule().endswith(field.unit) and field.astropy_unit is not None, key
+    assert config._VALUE_KINDS["scale_length"].rule() == "must be between 1e-06 and 1e+05 kpc"
+
+
+def test_taper_width_default_and_limit():
+    # default 0.5 scale lengths, raised to 0.1 x taper_radius (the narrowest taper the
+    # potential resolves, measured in config.py); an explicit narrower one is refused
+    disk = DiskSpec("d", 1e10, 3.0, 0.3, taper_radius=8.0, toomre_q=1.2, particles=1)
+    assert disk.taper_width == 1.5
+    disk = DiskSpec("d", 1e10, 3.0, 0.3, taper_radius=40.0, toomre_q=1.2, toomre_q_radius=7.0,
+                    particles=1)
+    assert disk.taper_width == 4.0
+    with pytest.raises(ModelError, match="at least 0.1 x taper_radius = 4 kpc"):
+        DiskSpec("d", 1e10, 3.0, 0.3, taper_radius=40.0, taper_width=3.9, toomre_q=1.2,
+                 toomre_q_radius=7.0, particles=1)
+
+
+def test_nfw_density_scale_gives_the_concentration():
+    # rho_s from (c, rho_crit) by the NFW definition (3 rho_s m(c)/c^3 = 200 rho_crit,
+    # m(c) = ln(1 + c) - c/(1 + c), computed here by hand) is mapped back to c
+    rho_crit = critical_density("Planck18", 0.0)
+    for c in (1.5, 10.0, 300.0):
+        m = math.log(1 + c) - c / (1 + c)
+        rho_s = 200 * rho_crit * c**3 / (3 * m)
+        assert config._nfw_concentration(rho_s, rho_crit, "h.") == pytest.approx(c, rel=1e-10)
+    with pytest.raises(ModelError, match="concentration r200/r_s, which must be > 1"):
+        config._nfw_concentration(1e3, rho_crit, "components.halo.")
+
+
+def test_particle_mass_may_not_imply_too_many_particles():
+    data = default_dict()
+    for table in data["components"].values():
+        del table["particles"]
+    data["model"]["particle_mass"] = "1 Msun"
+    with pytest.raises(ModelError) as exc_info:
+        spec_from_dict(data)
+    assert_one_line_error(exc_info, "model.particle_mass")
+    assert "at most 1e+10" in str(exc_info.value)
 
 
 def test_nfw_needs_one_parameter_set():

@@ -61,7 +61,9 @@ def test_mock_writes_every_file(snapshot, tmp_path, capsys):
     (["--distance", "1 pc"], "--distance"),
     (["--noise", "-0.1"], "--noise"),
     (["--fit-geometry", "loose"], "--fit-geometry"),
-    (["--free", "pa,tilt", "--fit-geometry", "global"], "--free"),
+    (["--fit-params", "pa,tilt", "--fit-geometry", "global"], "--fit-params"),
+    # the option's earlier name: a one-line error naming the new one
+    (["--free", "pa,inc", "--fit-geometry", "global"], "renamed: use --fit-params"),
 ])
 def test_refusals_exit_2_and_write_nothing(snapshot, tmp_path, capsys, extra, key):
     out = tmp_path / "mock"

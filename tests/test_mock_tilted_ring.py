@@ -158,7 +158,7 @@ def test_bad_options_refused():
     from icgen.mock import command
     with pytest.raises(ModelError, match="--fit-geometry"):
         tr.check_geometry_options("loose", ())
-    with pytest.raises(ModelError, match="--free"):
+    with pytest.raises(ModelError, match="--fit-params"):
         tr.check_geometry_options("global", ("pa", "tilt"))
     # the CLI spells the choices out to stay light; they must agree
     assert command.GEOMETRY_MODES == tr.GEOMETRY_MODES

@@ -141,11 +141,12 @@ def test_osipkov_merritt_anisotropy_profile():
     assert np.mean(vt2[outer]) / (2 * np.mean(vr[outer] ** 2)) < 0.3   # radial orbits outside
 
 
-def test_spin_flips_only_retrograde_azimuthal_velocities():
-    # Flipping v_phi keeps |v| and positions (same deviates); a fraction (1 + spin)/2 of the
+def test_retrograde_flip_reverses_only_retrograde_azimuthal_velocities():
+    # Flipping v_phi keeps |v| and positions (same deviates); a fraction (1 + f)/2 of the
     # particles then have L_z > 0 (binomial noise, 5 sigma); mean v_phi > 0.
     base = model_from_components({"b": {**HERNQUIST, "particles": 50_000}})
-    spun = model_from_components({"b": {**HERNQUIST, "particles": 50_000, "spin": 0.5}})
+    spun = model_from_components({"b": {**HERNQUIST, "particles": 50_000,
+                                        "retrograde_flip_fraction": 0.5}})
     c0 = sampling.particles(base, "b", 0, 50_000)
     c1 = sampling.particles(spun, "b", 0, 50_000)
     np.testing.assert_array_equal(c0.position, c1.position)

@@ -304,7 +304,7 @@ def _spheroid_rows(model, name, p, sigma_r2, n_sigma):
     """Density, sigma_r, sigma_theta, sigma_phi and beta of one halo or bulge.
 
     Dispersions are root mean squares about zero: a spheroid has no mean streaming in
-    r or theta, and the spin option (reversing v_phi of some orbits) keeps <v_phi^2>.
+    r or theta, and retrograde_flip_fraction (reversing v_phi of some orbits) keeps <v_phi^2>.
     """
     comp, spec, nb = model.components[name], model.spec.component(name), RADIAL_BINS
     r, v_r, v_th, v_ph = measure.spherical(p["position"], p["velocity"])
@@ -360,8 +360,9 @@ def _spheroid_sigma_r2(model):
 
 def _expected_velocity(model, name, p, pred):
     """Per-particle expected velocity (n, 3): the mean rotation times e_phi for a stellar
-    disk (Jeans) or a gas disk (pressure-supported); spin |v_phi| e_phi for a spheroid (the
-    spin flip makes E[v_phi | |v_phi|] = spin |v_phi|); zero for a point mass."""
+    disk (Jeans) or a gas disk (pressure-supported); f |v_phi| e_phi for a spheroid (flipping
+    retrograde orbits with probability f = retrograde_flip_fraction makes
+    E[v_phi | |v_phi|] = f |v_phi|); zero for a point mass."""
     e_phi = measure.phi_unit_vectors(p["position"])
     kind = model.components[name].kind
     if kind == "disk":
@@ -374,7 +375,8 @@ def _expected_velocity(model, name, p, pred):
         return v[:, None] * e_phi
     if kind in ("halo", "bulge"):
         v_phi = np.einsum("ij,ij->i", p["velocity"], e_phi)
-        return (model.spec.component(name).spin * np.abs(v_phi))[:, None] * e_phi
+        flip = model.spec.component(name).retrograde_flip_fraction
+        return (flip * np.abs(v_phi))[:, None] * e_phi
     return np.zeros_like(p["velocity"])
 
 

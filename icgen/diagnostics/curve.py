@@ -21,11 +21,17 @@ def reference_scale_length(model):
     return max(disks, key=lambda d: d.total_mass).R_d
 
 
+# Outer radius (kpc) of the table of a model with no length scale (point masses only):
+# the size of a galaxy's disk.
+POINT_MASS_RADIUS = 10.0
+
+
 def default_radii(model, n=120):
     """Radii (kpc) for the table: out to 10 R_d of the main disk, else 5 x the largest
-    spheroid scale radius."""
+    spheroid scale radius, else (point masses only) POINT_MASS_RADIUS."""
     r_d = reference_scale_length(model)
-    r_out = 10 * r_d if r_d else 5 * max(c.scale for c in model.components.values() if c.scale > 0)
+    scales = [c.scale for c in model.components.values() if c.scale > 0]
+    r_out = 10 * r_d if r_d else 5 * max(scales) if scales else POINT_MASS_RADIUS
     return np.linspace(r_out / n, r_out, n)
 
 

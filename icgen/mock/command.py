@@ -1,4 +1,5 @@
 """The ``icgen mock`` subcommand: its arguments and what it runs (called from icgen.cli)."""
+import argparse
 import os
 import sys
 
@@ -37,9 +38,12 @@ def add_arguments(p):
                                         "their own velocity spread; the sound speed for gas)")
     p.add_argument("--fit-geometry", default="fixed",
                    help=f"tilted-ring geometry: {' | '.join(GEOMETRY_MODES)} (default fixed)")
-    p.add_argument("--free", default="pa,inc",
-                   help=f"geometry fitted unless fixed, from {','.join(GEOMETRY_PARAMETERS)} "
+    p.add_argument("--fit-params", default="pa,inc",
+                   help=f"geometry parameters the tilted-ring fit solves for (unless "
+                        f"--fit-geometry fixed), from {','.join(GEOMETRY_PARAMETERS)} "
                         f"(default pa,inc)")
+    # the option's earlier name, kept only to point to the new one
+    p.add_argument("--free", default=None, help=argparse.SUPPRESS)
     p.add_argument("--expansion", action="store_true", help="also fit a radial velocity per ring")
     p.add_argument("--seed", type=int, default=0, help="seed of the noise (default 0)")
     p.add_argument("-o", "--output", required=True, help="folder for the mock files")
@@ -67,11 +71,14 @@ def run(args):
     from .project import geometry_from_text, instrument_from_text
     from .tilted_ring import check_geometry_options
 
+    if args.free is not None:
+        raise ModelError("--free", args.free, f"renamed: use --fit-params, e.g. "
+                                              f"--fit-params {args.free}")
     geometry = geometry_from_text(args.inclination, args.position_angle, args.distance,
                                   args.systemic)
     instrument = instrument_from_text(args.beam, args.pixel, args.channel, args.noise,
                                       args.clip, args.field, args.line_width)
-    free = tuple(k.strip() for k in args.free.split(",") if k.strip())
+    free = tuple(k.strip() for k in args.fit_params.split(",") if k.strip())
     check_geometry_options(args.fit_geometry, free)
     _check_folder(args.output, args.overwrite)
     particles, kind, model = tracer_particles(args.snapshot, args.tracer)
@@ -100,10 +107,10 @@ def report(obs):
              f"of {ins.channel:g} km/s; beam {ins.beam:g} arcsec = "
              f"{ins.beam * g.kpc_per_arcsec:.3f} kpc; noise rms {obs.rms:.3g} (cube units)"]
     fitted = obs.rings.meta.get("geometry")
-    if fitted and obs.rings.meta["free"]:
+    if fitted and obs.rings.meta["fitted"]:
         errs = obs.rings.meta["geometry_err"]
         lines.append("fitted: " + ", ".join(f"{k} = {fitted[k]:.2f} +- {errs[k]:.2f}"
-                                            for k in obs.rings.meta["free"]))
+                                            for k in obs.rings.meta["fitted"]))
     rows = []
     for r, t, s in zip(obs.rings, obs.truth, obs.major_axis):
         rows.append([f"{r['radius'].value:.2f}", f"{r['v_rot'].value:.1f}",

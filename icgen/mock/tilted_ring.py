@@ -256,7 +256,7 @@ def check_geometry_options(mode, free):
         raise ModelError("--fit-geometry", mode, f"must be one of {', '.join(GEOMETRY_MODES)}")
     for key in free:
         if key not in GEOMETRY_PARAMETERS:
-            raise ModelError("--free", key, f"must be among {', '.join(GEOMETRY_PARAMETERS)}")
+            raise ModelError("--fit-params", key, f"must be among {', '.join(GEOMETRY_PARAMETERS)}")
     return () if mode == "fixed" else tuple(k for k in GEOMETRY_PARAMETERS if k in free)
 
 
@@ -311,7 +311,7 @@ def fit_tilted_rings(vfield, grid, geometry, instrument, mode="fixed", free=("pa
     min_pixels = max(2 * (1 + int(expansion) + (len(free) if mode == "rings" else 0)),
                      int(math.ceil(per_beam)))
     rows = _empty_rows(edges, g0)
-    meta = {"mode": mode, "free": list(free), "expansion": expansion, "exclude_deg": exclude,
+    meta = {"mode": mode, "fitted": list(free), "expansion": expansion, "exclude_deg": exclude,
             "pixels_per_beam": per_beam, "pixel": instrument.pixel}
     if geometry.inclination > MAX_FIT_INCLINATION:
         meta["note"] = (f"inclination {geometry.inclination:g} deg above "

@@ -230,10 +230,16 @@ def _decay_length(spec, r_t):
     return spec.truncation_width or defaults.TRUNCATION_DECAY_FRACTION * r_t
 
 
+def default_outer_radius(profile, scale_radius):
+    """Default outer radius (kpc) of a law of finite mass: DEFAULT_CUT_HALF_MASS_RADII
+    half-mass radii of the uncut law."""
+    return DEFAULT_CUT_HALF_MASS_RADII * INNER_LAWS[profile].half_mass_x * scale_radius
+
+
 def finite_law(spec):
     """Hernquist or Plummer component of total mass ``spec.mass`` (cut included)."""
-    law, a = INNER_LAWS[spec.profile], spec.scale_radius
-    r_t = spec.outer_radius or DEFAULT_CUT_HALF_MASS_RADII * law.half_mass_x * a
+    a = spec.scale_radius
+    r_t = spec.outer_radius or default_outer_radius(spec.profile, a)
     r_d = _decay_length(spec, r_t)
     unit = TruncatedSpheroid(spec.name, spec.kind, spec.profile, 1.0, a, r_t, r_d)
     return TruncatedSpheroid(spec.name, spec.kind, spec.profile, spec.mass / unit.total_mass,

@@ -41,9 +41,11 @@ _GL_X, _GL_W = np.polynomial.legendre.leggauss(4)
 def _piece(e, pa, pb, ga, gb):
     """int_{pb}^{pa} g / sqrt(e - Psi) dPsi for g linear from ga (at pa) to gb (at pb),
     pa >= pb, e >= pa; written without the cancellations of the textbook forms when the
-    interval is short against e - pa."""
-    a = e - pa
-    b = e - pb
+    interval is short against e - pa. Psi flat to rounding (a light, small component inside
+    the others' core) or rising by an ulp: such an interval spans no energy and adds
+    nothing."""
+    a = max(e - pa, 0.0)
+    b = max(e - pb, 0.0)
     if b <= a:
         return 0.0
     sa = math.sqrt(a)
@@ -96,7 +98,7 @@ def eddington_sum(psi, g, h_end, k_jump, psi_jump, g_before, g_after):
                 term = _piece(e, psi[i], psi[i + 1], g[i], g[i + 1])
             s += term
             sabs += abs(term)
-        tail = h_end / math.sqrt(e - psi[n - 1])
+        tail = h_end / math.sqrt(e - psi[n - 1]) if e > psi[n - 1] else 0.0
         f[j] = EDDINGTON_NORM * (s + tail)
         scale[j] = EDDINGTON_NORM * (sabs + abs(tail))
     return f, scale

@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..config import model_warnings
 from ..errors import ModelError, MISSING
 from . import seeds
 from .disk_velocities import DiskVelocities
@@ -260,7 +261,7 @@ def iter_chunks(model, chunk_size=262144, quiet_start=None, mirror=None, report=
     report = SamplingReport() if report is None else report
     plans = plan(model)
     report.plan = plans
-    for message in mass_warnings(plans):
+    for message in mass_warnings(plans) + model_warnings(model.spec):
         warnings.warn(message, SamplingWarning, stacklevel=2)
         report.warnings.append(message)
     t0 = time.perf_counter()

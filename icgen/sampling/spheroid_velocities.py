@@ -16,7 +16,8 @@ in z), and tabulated with its first two derivatives on a uniform ln r grid. Two 
   equilibrium for cuspy halos (Kazantzidis, Magorrian & Moore 2004, ApJ 601, 37); it is
   kept for comparison.
 
-Net rotation: the v_phi of a retrograde particle is reversed with probability ``spin``;
+Net rotation: the v_phi of a retrograde particle is reversed with probability
+``retrograde_flip_fraction``;
 the DF stays a function of the integrals (E, L, sign L_z), so the model stays in
 equilibrium (Lynden-Bell 1960, MNRAS 120, 204).
 """
@@ -175,7 +176,7 @@ class SpheroidVelocities:
     ----------
     comp : profiles.spheroid.Spheroid
     spec : SpheroidSpec
-        Reads ``velocities``, ``anisotropy_radius`` and ``spin``.
+        Reads ``velocities``, ``anisotropy_radius`` and ``retrograde_flip_fraction``.
     table : RadialTable
         Averaged total potential covering the component.
     """
@@ -185,7 +186,7 @@ class SpheroidVelocities:
         self.method = getattr(spec, "velocities", None) or "eddington"
         r_a = getattr(spec, "anisotropy_radius", None)
         self.r_a = float(r_a) if r_a else np.inf
-        self.spin = float(getattr(spec, "spin", None) or 0.0)
+        self.flip_fraction = float(getattr(spec, "retrograde_flip_fraction", None) or 0.0)
         r = table.r
         if self.method == "jeans":
             self.sigma2 = jeans_sigma_r2(table, comp.density_r, self.r_a)
@@ -233,7 +234,7 @@ class SpheroidVelocities:
 
     def sample(self, r, nhat, u):
         """Velocities (n, 3) in km/s for particles at radii r (kpc), unit vectors nhat
-        (n, 3), from deviates u (n, 4): speed, two for the direction, one for the spin."""
+        (n, 3), from deviates u (n, 4): speed, two for the direction, one for the flip."""
         t = self.table
         w = eddington.draw_speeds(np.log(r), np.ascontiguousarray(u[:, 0]), t.x[0],
                                   t.x[1] - t.x[0], eddington.SPEED_EDGES, self.cdf, t.psi)
@@ -243,8 +244,8 @@ class SpheroidVelocities:
             w_r = np.einsum("ij,ij->i", v, nhat)
             v_t = v - w_r[:, None] * nhat
             v = w_r[:, None] * nhat + v_t / np.sqrt(1.0 + (r / self.r_a) ** 2)[:, None]
-        if self.spin > 0:
-            v = _flip_retrograde(r[:, None] * nhat, v, u[:, 3] < self.spin)
+        if self.flip_fraction > 0:
+            v = _flip_retrograde(r[:, None] * nhat, v, u[:, 3] < self.flip_fraction)
         return v
 
 
