@@ -626,8 +626,9 @@ def _check_cut(spec, rho_crit):
     width = spec.truncation_width
     if (default if width is None else width / r_t) >= least:
         return
+    measured = "limit measured" if spec.profile in _MIN_CUT_FRACTION else "not measured: the default"
     why = (f"for the {spec.profile} profile cut at {r_t / r_s:.3g} {name}: a faster decay makes "
-           f"the isotropic distribution function negative just outside the cut (limit measured)")
+           f"the isotropic distribution function negative just outside the cut ({measured})")
     if width is None:
         rule = (f"the default {default:g} x {r_t_is} ({r_t:.4g} kpc) is too short {why}; give "
                 f"truncation_width >= {least * r_t:.4g} kpc")
