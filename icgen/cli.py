@@ -1,6 +1,6 @@
 """Command-line interface: parses arguments, calls the library, prints. ``main(argv) -> int``.
 
-Exit status: 0 success, 1 a check failed, 2 bad input (nothing written).
+Exit status: 0 success, 1 a check failed, 2 bad input (nothing written), 3 drift untrustworthy.
 """
 import argparse
 import os
@@ -56,6 +56,7 @@ def build_parser():
 
     p = sub.add_parser("info", help="short summary of a snapshot file")
     p.add_argument("path", help="snapshot file (HDF5, icgen schema)")
+    p.add_argument("--quick", action="store_true", help="check the header only, not every value")
     p = sub.add_parser("stability", help="Toomre Q, swing amplification, bar criterion, resolution")
     p.add_argument("model", nargs="?", default=None,
                    help="model file (TOML) or snapshot (HDF5, its stored model); omitted: "
@@ -226,7 +227,7 @@ def cmd_build(args):
 def cmd_info(args):
     from .snapshot import describe
 
-    print(describe(args.path))
+    print(describe(args.path, scan=not args.quick))
     return 0
 
 
