@@ -18,9 +18,10 @@ checks the whole header before anything else is read:
   the total.
 
 Particle values are checked as they are read, in slabs of :data:`SLAB_ROWS` rows (memory
-stays flat): positions, velocities and internal energies finite, masses finite and > 0,
-internal energies > 0. :meth:`SnapshotFile.scan` reads every slab for that check alone
-(``icgen info``) and also compares each ``total_mass`` with the sum of its masses.
+stays flat): every value finite and below :data:`MAX_MAGNITUDE` in magnitude (so that
+squares and sums stay finite), masses and internal energies > 0.
+:meth:`SnapshotFile.scan` reads every slab for that check alone (``icgen info``) and also
+compares each ``total_mass`` with the sum of its masses.
 
 Any failure raises a one-line :class:`icgen.errors.ModelError` naming the file, the
 attribute or dataset, and the rule (exit status 2 in the CLI).
@@ -50,6 +51,10 @@ G_TOLERANCE = 1e-3
 #: total_mass against the sum of the masses: relative tolerance. Both are float64 sums
 #: of the same stored values in other orders (round-off ~1e-16 sqrt(N)).
 TOTAL_MASS_TOLERANCE = 1e-6
+#: Largest magnitude of a stored value: r^2 = x^2 + y^2 + z^2 (and v^2) must stay finite
+#: in float64 (max 1.8e308), or every diagnostic sees inf (a shrinking sphere of radius
+#: inf never shrinks). No galaxy in any unit comes near it.
+MAX_MAGNITUDE = 1e150
 #: Datasets of every particle group: name -> (trailing shape, dtype kind); gas adds one.
 _DATASETS = {"position": ((3,), "f"), "velocity": ((3,), "f"), "mass": ((), "f"),
              "id": ((), "u")}
@@ -403,24 +408,27 @@ def _curve(f, components, path):
 
 
 def check_values(values, key, where, start=0, rows=SLAB_ROWS):
-    """Raise ModelError unless every row of ``values`` is finite (and > 0 for masses and
-    internal energies, >= 0 for radii); integer arrays pass. Works ``rows`` rows at a time,
-    so the temporary masks stay small. ``start`` is the row number of values[0]."""
+    """Raise ModelError unless every row of ``values`` is finite with magnitude below
+    MAX_MAGNITUDE (and > 0 for masses and internal energies, >= 0 for radii); integer
+    arrays pass. Works ``rows`` rows at a time, so the temporary masks stay small.
+    ``start`` is the row number of values[0]."""
     values = np.asarray(values)
     if values.dtype.kind != "f":
         return
+    limit = f"finite and below {MAX_MAGNITUDE:g} in magnitude"
     for lo in range(0, max(values.shape[0], 1), rows):
         part = values[lo:lo + rows]
+        ok = np.abs(part) < MAX_MAGNITUDE            # False for NaN and inf too
         if key in _POSITIVE:
-            bad, rule = ~(part > 0), "must be finite and > 0"
+            ok &= part > 0
+            rule = f"must be {limit}, and > 0"
         elif key == "radius":
-            bad, rule = ~(part >= 0), "must be finite and >= 0"
+            ok &= part >= 0
+            rule = f"must be {limit}, and >= 0"
         else:
-            bad, rule = ~np.isfinite(part), "must be finite"
-        if key in _POSITIVE or key == "radius":
-            bad |= ~np.isfinite(part)
-        if bad.any():
-            flat = bad.reshape(part.shape[0], -1).any(axis=1)
+            rule = f"must be {limit}"
+        if not ok.all():
+            flat = ~ok.reshape(part.shape[0], -1).all(axis=1)
             row = int(np.flatnonzero(flat)[0])
             shown = ", ".join(f"{float(x):.6g}" for x in np.atleast_1d(part[row]))
             raise ModelError(where, MISSING, f"row {start + lo + row} is "

@@ -138,6 +138,10 @@ VALUE_DAMAGE = {
                      "dataset /particles/disk/position: row 5 is (nan, 0, 0)"),
     "infinite velocity": (_set_row("particles/halo/velocity", N_HALO - 1, [0.0, np.inf, 0.0]),
                           f"dataset /particles/halo/velocity: row {N_HALO - 1} is (0, inf, 0)"),
+    # a finite position whose square overflows: the shrinking-sphere centre of check and
+    # drift then looped for ever on a sphere of infinite radius
+    "position squared overflows": (_set_row("particles/halo/position", 439, [1.0, -6.7e174, 0.0]),
+                                   "dataset /particles/halo/position: row 439 is (1, -6.7e+174, 0)"),
     "total_mass edited": (_set_attr("particles/disk", "total_mass", 0.4),
                           "total_mass 0.4 differs from the sum of its masses"),
 }
@@ -209,7 +213,7 @@ def test_mock_of_negative_masses_writes_no_cube(good, tmp_path, capsys):
         slice(None), -f["particles/disk/mass"][()]))
     out = tmp_path / "mock"
     err = _refused(commands(path, tmp_path)["mock"], "/particles/disk/mass: row 0 is -", capsys)
-    assert "must be finite and > 0" in err
+    assert "must be finite and below 1e+150 in magnitude, and > 0" in err
     assert not out.exists()
 
 
@@ -248,6 +252,9 @@ def test_check_values_names_the_first_bad_row_across_slabs():
     with pytest.raises(ModelError, match="row 1007 is -2"):
         check_values(masses, "mass", "m", start=1000, rows=3)
     check_values(np.arange(5, dtype=np.uint64), "id", "ids")        # integers pass
+    check_values(np.array([-9.9e149, 9.9e149]), "velocity", "v")       # below the bound
+    with pytest.raises(ModelError, match="row 1 is 1e.150; values must be finite and below"):
+        check_values(np.array([0.0, 1e150]), "velocity", "v")
     assert SLAB_ROWS == 2**20
 
 
