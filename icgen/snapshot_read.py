@@ -45,6 +45,8 @@ __all__ = ["SLAB_ROWS", "SnapshotFile", "Snapshot", "open_snapshot", "read_heade
 
 #: Rows read (and checked) at a time: 2^20 rows of (N, 3) float64 are 24 MiB.
 SLAB_ROWS = 1 << 20
+#: Rows per step of the value check inside a slab: its temporary arrays stay ~2 MB.
+CHECK_ROWS = 1 << 16
 #: Stored G against G of the stored units (astropy.constants): relative tolerance. Wide
 #: enough for the CODATA 2014 -> 2018 change of G (3e-5), far below a unit mix-up.
 G_TOLERANCE = 1e-3
@@ -407,7 +409,7 @@ def _curve(f, components, path):
 # ------------------------------------------------------------------ value checks
 
 
-def check_values(values, key, where, start=0, rows=SLAB_ROWS):
+def check_values(values, key, where, start=0, rows=CHECK_ROWS):
     """Raise ModelError unless every row of ``values`` is finite with magnitude below
     MAX_MAGNITUDE (and > 0 for masses and internal energies, >= 0 for radii); integer
     arrays pass. Works ``rows`` rows at a time, so the temporary masks stay small.
