@@ -420,7 +420,10 @@ def check_values(values, key, where, start=0, rows=CHECK_ROWS):
     limit = f"finite and below {MAX_MAGNITUDE:g} in magnitude"
     for lo in range(0, max(values.shape[0], 1), rows):
         part = values[lo:lo + rows]
-        ok = np.abs(part) < MAX_MAGNITUDE            # False for NaN and inf too
+        if part.dtype.itemsize >= 8:
+            ok = np.abs(part) < MAX_MAGNITUDE        # False for NaN and inf too
+        else:                                        # float32: below 3.4e38 when finite
+            ok = np.isfinite(part)
         if key in _POSITIVE:
             ok &= part > 0
             rule = f"must be {limit}, and > 0"
