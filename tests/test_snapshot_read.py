@@ -253,6 +253,9 @@ def test_check_values_names_the_first_bad_row_across_slabs():
         check_values(masses, "mass", "m", start=1000, rows=3)
     check_values(np.arange(5, dtype=np.uint64), "id", "ids")        # integers pass
     check_values(np.array([-9.9e149, 9.9e149]), "velocity", "v")       # below the bound
+    check_values(np.array([3e38], np.float32), "position", "x")        # float32: finite
+    with pytest.raises(ModelError, match="row 0 is inf"):
+        check_values(np.array([np.inf], np.float32), "position", "x")
     with pytest.raises(ModelError, match="row 1 is 1e.150; values must be finite and below"):
         check_values(np.array([0.0, 1e150]), "velocity", "v")
     assert SLAB_ROWS == 2**20
