@@ -172,20 +172,25 @@ def test_gas_is_listed_but_not_integrated():
     assert "not integrated: gas" in drift.format_report(res)
 
 
-def test_a_run_that_overflows_is_not_trusted_and_exits_3(small_model, tmp_path):
-    # a particle at 1e200 km/s: its kinetic energy overflows (IEEE 754) and its orbit
-    # turns non-finite at the first step; the run must say so and exit 3, not 0 or 1
+def test_a_run_that_overflows_is_not_trusted_and_exits_3(tmp_path):
+    # a valid particle 1e-150 kpc from a point mass: GM/r^2 ~ 4e302 (km/s)^2/kpc kicks it
+    # so hard that r^2 and v^2 overflow (IEEE 754) within the first steps, and its orbit
+    # turns non-finite; the run must say so and exit 3, not 0 or 1
     import warnings
-    model, parts = small_model
-    parts = {n: dict(p) for n, p in parts.items()}
-    parts["halo"]["velocity"] = parts["halo"]["velocity"].copy()
-    parts["halo"]["velocity"][0] = [1e200, 0.0, 0.0]
+    from icgen import sampling
+    model = model_from_components({
+        "bh": {"kind": "point_mass", "mass": "1e8 Msun"},
+        "halo": {"kind": "halo", "profile": "hernquist", "mass": "1e11 Msun",
+                 "scale_radius": "8 kpc", "particles": 2000}})
     with warnings.catch_warnings(), np.errstate(all="ignore"):
         warnings.simplefilter("ignore")
+        parts = sampling.sample(model)
+        parts["halo"]["position"][0] = [1e-150, 0.0, 0.0]
+        parts["halo"]["velocity"][0] = 0.0
         res = drift.run_drift(model, parts, 0.02, outputs=2)
     assert res.exit_status == drift.UNTRUSTED_STATUS == 3 and not res.trusted
     assert res.integration["nonfinite_particles"] == 1
-    assert "1 of 30000 particles reached a non-finite" in res.integration["reason"]
+    assert "1 of 2000 particles reached a non-finite" in res.integration["reason"]
     text = drift.format_report(res)
     assert text.splitlines()[-1] == ("INTEGRATION NOT TRUSTWORTHY (exit status 3): "
                                      + res.integration["reason"])
