@@ -5,6 +5,8 @@ Exit status:
 - 0 success;
 - 1 a check or drift test failed, or the sampler made a non-finite value;
 - 2 bad input: one line naming the option or key and the rule, nothing written;
+- 3 ``icgen drift``: the integration is not trustworthy (energy error above its bar, or an
+  orbit overflowed), whatever the drifts show;
 - 74 an output could not be written (full disk, file-size limit, other I/O errors; EX_IOERR
   of BSD sysexits.h, so that scripts can tell it from bad input and failed checks): one
   line saying what, where and, for snapshots, the space needed; nothing written;
@@ -76,6 +78,7 @@ def build_parser():
 
     p = sub.add_parser("info", help="short summary of a snapshot file")
     p.add_argument("path", help="snapshot file (HDF5, icgen schema)")
+    p.add_argument("--quick", action="store_true", help="check the header only, not every value")
     p = sub.add_parser("stability", help="Toomre Q, swing amplification, bar criterion, resolution")
     p.add_argument("model", nargs="?", default=None,
                    help="model file (TOML) or snapshot (HDF5, its stored model); omitted: "
@@ -361,7 +364,7 @@ def _stale_temporary_files(folder, remove):
 def cmd_info(args):
     from .snapshot import describe
 
-    print(describe(args.path))
+    print(describe(args.path, scan=not args.quick))
     return 0
 
 

@@ -49,9 +49,12 @@ def angular_momentum_z(x, y, vx, vy, out):
 
 @njit(cache=True)
 def _interp(lnr, lnr0, dlnr, table):
-    """Linear interpolation of a table uniform in ln r (clamped at both ends)."""
+    """Linear interpolation of a table uniform in ln r (clamped at both ends; NaN for a
+    NaN lnr, which must not become an index)."""
     t = (lnr - lnr0) / dlnr
     n = table.shape[0]
+    if t != t:
+        return math.nan
     if t <= 0.0:
         return table[0]
     if t >= n - 1:
@@ -69,11 +72,14 @@ def pericentre(r, v2, L2, lnr0, dlnr, phi_tab, out):
     particle's energy is taken as E = v^2/2 + Phi(r) at its radius r, so r lies inside
     the allowed range, and r_p is the smallest root of 2 (E - Phi(r_p)) = L^2 / r_p^2
     (Binney & Tremaine 2008, sect. 3.1), found by bisection in ln r; orbits that reach the
-    first table node (radial ones) get r_p = exp(lnr0).
+    first table node (radial ones) get r_p = exp(lnr0); a NaN energy gives NaN.
     """
     for i in prange(r.shape[0]):
         lnr = math.log(r[i])
         e = 0.5 * v2[i] + _interp(lnr, lnr0, dlnr, phi_tab)
+        if e != e:
+            out[i] = math.nan
+            continue
         lo = lnr0
         hi = lnr
         if 2.0 * (e - _interp(lo, lnr0, dlnr, phi_tab)) - L2[i] * math.exp(-2.0 * lo) < 0.0:
@@ -249,6 +255,14 @@ class Orbits:
                 pool.shutdown()
         self.steps_taken += int(self.steps.sum())
         self._phi = self._evaluate(np.arange(self.x.size))[0]
+
+    def nonfinite(self):
+        """Number of particles whose position or velocity is NaN or infinite (an orbit
+        that overflowed)."""
+        bad = np.zeros(self.x.size, np.bool_)
+        for a in (self.x, self.y, self.z, self.vx, self.vy, self.vz):
+            bad |= ~np.isfinite(a)
+        return int(np.count_nonzero(bad))
 
     def energy(self):
         """Specific energy E = v^2/2 + Phi per particle, (km/s)^2, sorted order."""

@@ -1,6 +1,7 @@
-"""Snapshot files: the HDF5 writer (streamed, atomic) and reader, schema version 1.
+"""Snapshot files: the HDF5 writer (streamed, atomic), schema version 1; the reader is
+icgen/snapshot_read.py (its names are importable from here too).
 
-Layout (DESIGN.md section 6)::
+Layout (README.md, "Snapshot file format")::
 
     /                      attrs: schema, schema_version, length_unit, velocity_unit,
                                   mass_unit, G, seed, config, created, icgen_version
@@ -26,7 +27,6 @@ import io
 import math
 import os
 import stat
-import tomllib
 from dataclasses import dataclass, field
 
 import astropy.constants as const
@@ -36,15 +36,15 @@ import numpy as np
 
 from . import __version__
 from . import paths
-from .errors import MISSING, ModelError
+from .errors import ModelError
 from .paths import OutputWriteError, describe_os_error, format_bytes
 from .units import unit_scale
 
-__all__ = ["SCHEMA", "SCHEMA_VERSION", "PRECISIONS", "COMPRESSIONS", "OutputUnits",
-           "NonFiniteError", "OutputWriteError", "SnapshotWriter", "Snapshot", "read_snapshot",
-           "read_header", "load_model_from_snapshot", "partial_path", "gravitational_constant",
-           "check_format", "check_output_units", "estimate_file_size", "describe",
-           "SPEED_OF_LIGHT"]
+__all__ = ["SCHEMA", "SCHEMA_VERSION", "READABLE_VERSIONS", "PRECISIONS", "COMPRESSIONS",
+           "OutputUnits", "NonFiniteError", "OutputWriteError", "SnapshotWriter", "Snapshot",
+           "read_snapshot", "read_header", "load_model_from_snapshot", "partial_path",
+           "gravitational_constant", "check_format", "check_output_units",
+           "estimate_file_size", "describe", "open_snapshot", "SPEED_OF_LIGHT"]
 
 SCHEMA = "icgen-snapshot"
 SCHEMA_VERSION = 2
@@ -90,6 +90,9 @@ _CHUNK_OVERHEAD = 256
 _FILE_OVERHEAD = 65536
 # Points of the stored rotation curve assumed by the estimate (curve.default_radii: 120).
 _CURVE_POINTS_BOUND = 1000
+#: Root attributes of version 2 on, three numbers each: the sampled centre of mass (the
+#: model centre is the origin) and the velocity shift that removed the net momentum.
+_ROOT_VECTORS = ("centre_of_mass", "velocity_shift")
 
 
 class NonFiniteError(RuntimeError):
@@ -720,226 +723,14 @@ def _half_mass_radius(hist):
 
 # ---------------------------------------------------------------------- reading
 
-
-@dataclass
-class Snapshot:
-    """A snapshot read into memory.
-
-    Attributes
-    ----------
-    path : str
-    components : dict
-        name -> {"kind": str, "position" (N, 3), "velocity" (N, 3), "mass" (N,),
-        "id" (N,) uint64, and for gas "internal_energy" (N,)}; arrays in the file's
-        units, internal energy in velocity_unit^2 (astropy Quantities if read with
-        ``quantity=True``; ids stay plain).
-    units : dict
-        "length", "velocity", "mass" -> unit strings astropy can parse.
-    G : float or Quantity
-        Gravitational constant in those units.
-    seed : int
-    config : str
-        The resolved model file (TOML text).
-    attrs : dict
-        All root attributes.
-    rotation_curve : dict
-        "radius", "v_circ_total", "v_circ_<name>" -> (M,) arrays (Quantities if asked).
-    """
-
-    path: str
-    components: dict
-    units: dict
-    G: object
-    seed: int
-    config: str
-    attrs: dict
-    rotation_curve: dict
-
-    @property
-    def model_name(self):
-        return _model_name(self.config)
+# The reader, and the validation every reader goes through, live in icgen/snapshot_read.py;
+# its names stay importable from here (loaded on first use: that module imports this one).
+_READER_NAMES = ("Snapshot", "read_snapshot", "read_header", "read_rows",
+                 "load_model_from_snapshot", "describe", "open_snapshot")
 
 
-def _plain(value):
-    """h5py attribute value -> plain Python value."""
-    if isinstance(value, bytes):
-        return value.decode("utf-8", "replace")
-    if isinstance(value, np.generic):
-        return value.item()
-    return value
-
-
-def _open(path):
-    """Open ``path`` read-only as an icgen snapshot, or raise a one-line ModelError."""
-    key = str(path)
-    if not os.path.exists(path):
-        raise ModelError(key, MISSING, "no such file")
-    if os.path.isdir(path):
-        raise ModelError(key, MISSING, "is a folder, not a snapshot file")
-    if not h5py.is_hdf5(path):
-        raise ModelError(key, MISSING, "not an HDF5 file, so not an icgen snapshot")
-    try:
-        f = h5py.File(path, "r")
-    except OSError as exc:
-        raise ModelError(key, MISSING, f"cannot open as HDF5: {' '.join(str(exc).split())}") from None
-    schema = _plain(f.attrs.get("schema", MISSING))
-    if schema != SCHEMA:
-        f.close()
-        found = "no 'schema' attribute" if schema is MISSING else f"schema attribute {schema!r}"
-        raise ModelError(key, MISSING, f"not an icgen snapshot ({found}; expected {SCHEMA!r})")
-    version = _plain(f.attrs.get("schema_version", MISSING))
-    if version not in READABLE_VERSIONS:
-        f.close()
-        raise ModelError(key, MISSING, f"schema_version {version!r} is not one this icgen "
-                                       f"{__version__} reads ({', '.join(map(str, READABLE_VERSIONS))})")
-    missing = [k for k in _ROOT_KEYS if k not in f.attrs]
-    if missing or "particles" not in f:
-        f.close()
-        what = f"root attribute {missing[0]!r}" if missing else "group /particles"
-        raise ModelError(key, MISSING, f"incomplete icgen snapshot: {what} missing")
-    return f
-
-
-def _header_of(f, path):
-    attrs = {k: _plain(v) for k, v in f.attrs.items()}
-    comps = {}
-    for name, g in f["particles"].items():
-        ga = {k: _plain(v) for k, v in g.attrs.items()}
-        for k in ("kind", "count", "total_mass"):
-            if k not in ga:
-                raise ModelError(str(path), MISSING, f"incomplete icgen snapshot: "
-                                                     f"/particles/{name} has no attribute {k!r}")
-        ga["dtype"] = str(g["position"].dtype) if "position" in g else "?"
-        ga["compression"] = g["position"].compression if "position" in g else None
-        comps[name] = ga
-    return attrs, comps
-
-
-def read_header(path):
-    """Root attributes and per-component group attributes, without reading particles.
-
-    Returns
-    -------
-    attrs : dict
-    components : dict name -> {"kind", "count", "total_mass", "dtype", "compression"}
-    """
-    with _open(path) as f:
-        return _header_of(f, path)
-
-
-def read_rows(path, rows, slab=1 << 20):
-    """Some particles of a snapshot, in the file's units, holding in memory only them and
-    one slab of ``slab`` rows at a time.
-
-    ``rows`` maps component -> sorted row indices. Returns component -> dict of the
-    position, velocity, mass (and internal_energy) rows, in that order.
-    """
-    out = {}
-    with _open(path) as f:
-        for name, idx in rows.items():
-            g = f["particles"][name]
-            idx = np.asarray(idx, np.int64)
-            comp = {}
-            for key in ("position", "velocity", "mass", "internal_energy"):
-                if key not in g:
-                    continue
-                ds, pieces = g[key], []
-                for lo in range(0, ds.shape[0], slab):
-                    a, b = np.searchsorted(idx, [lo, lo + slab])
-                    if b > a:
-                        pieces.append(ds[lo:lo + slab][idx[a:b] - lo])
-                comp[key] = (np.concatenate(pieces) if pieces
-                             else np.empty((0,) + ds.shape[1:], ds.dtype))
-            out[name] = comp
-    return out
-
-
-def read_snapshot(path, quantity=False):
-    """Read a whole snapshot (schema version 1) into memory.
-
-    Parameters
-    ----------
-    path : str or PathLike
-    quantity : bool
-        Return positions, velocities, masses, G and the rotation curve as astropy
-        Quantities in the file's units.
-
-    Returns
-    -------
-    Snapshot
-
-    Raises
-    ------
-    ModelError
-        For a missing file or one that is not an icgen snapshot of a version this
-        icgen reads.
-    """
-    with _open(path) as f:
-        attrs, header = _header_of(f, path)
-        units = {k: attrs[f"{k}_unit"] for k in ("length", "velocity", "mass")}
-        L, V, M = (u.Unit(units[k]) for k in ("length", "velocity", "mass"))
-        unit_of = {"position": L, "velocity": V, "mass": M, "radius": L,
-                   "internal_energy": V**2}
-        components = {}
-        for name, g in f["particles"].items():
-            comp = {"kind": header[name]["kind"]}
-            for key in ("position", "velocity", "mass", "id", "internal_energy"):
-                if key not in g:
-                    continue
-                data = g[key][()]
-                comp[key] = data * unit_of[key] if quantity and key != "id" else data
-            components[name] = comp
-        curve = {}
-        if "model/rotation_curve" in f:
-            for key, d in f["model/rotation_curve"].items():
-                data = d[()]
-                curve[key] = data * unit_of.get(key, V) if quantity else data
-    G = attrs["G"]
-    if quantity:
-        G = G * L * V**2 / M
-    return Snapshot(str(path), components, units, G, attrs["seed"], attrs["config"], attrs, curve)
-
-
-def load_model_from_snapshot(path):
-    """GalaxyModel rebuilt from the model file stored in a snapshot's ``config``."""
-    from .config import spec_from_toml_text
-    from .model import GalaxyModel
-
-    attrs, _ = read_header(path)
-    return GalaxyModel(spec_from_toml_text(attrs["config"], source=f"{path}:config"))
-
-
-def _model_name(config_text):
-    try:
-        return str(tomllib.loads(config_text)["model"]["name"])
-    except (tomllib.TOMLDecodeError, KeyError, TypeError):
-        return "?"
-
-
-def describe(path):
-    """Short human summary of a snapshot (reads attributes only, not the particles)."""
-    from .textout import format_table
-
-    attrs, comps = read_header(path)
-    mass_unit = attrs["mass_unit"]
-    rows = []
-    for name, c in comps.items():
-        count = int(c["count"])
-        comp = f"{c['dtype']}" + (f", {c['compression']}" if c["compression"] else "")
-        rows.append([name, c["kind"], f"{count:,}", f"{c['total_mass'] / count:.4g}",
-                     f"{c['total_mass']:.4g}", comp])
-    total = sum(int(c["count"]) for c in comps.values())
-    rows.append(["total", "", f"{total:,}", "", f"{sum(c['total_mass'] for c in comps.values()):.4g}", ""])
-    headers = ["component", "kind", "particles", f"m/particle [{mass_unit}]",
-               f"total mass [{mass_unit}]", "storage"]
-    size = os.path.getsize(path)
-    lines = [f"icgen snapshot {path} ({size / 1e6:.1f} MB), schema {attrs['schema']} "
-             f"version {attrs['schema_version']}",
-             f"model:    {_model_name(attrs['config'])} (seed {attrs['seed']})",
-             f"created:  {attrs['created']} by icgen {attrs['icgen_version']}",
-             f"units:    length {attrs['length_unit']}, velocity {attrs['velocity_unit']}, "
-             f"mass {mass_unit}",
-             f"G:        {attrs['G']:.7g} {attrs['length_unit']} ({attrs['velocity_unit']})^2"
-             f" / ({mass_unit})", "",
-             format_table(headers, rows)]
-    return "\n".join(lines)
+def __getattr__(name):
+    if name in _READER_NAMES:
+        from . import snapshot_read
+        return getattr(snapshot_read, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

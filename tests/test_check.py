@@ -181,11 +181,15 @@ def small_snapshot(tmp_path_factory):
 
 
 def corrupted(src, tmp_path, edit):
-    """Copy of snapshot ``src`` with ``edit(h5py.File)`` applied."""
+    """Copy of snapshot ``src`` with ``edit(h5py.File)`` applied. Each group's
+    ``total_mass`` is set to the sum of its edited masses, as a generator that wrote
+    wrong masses would have written it (the reader refuses a file where they differ)."""
     dst = tmp_path / "corrupt.h5"
     shutil.copy(src, dst)
     with h5py.File(dst, "r+") as f:
         edit(f["particles"])
+        for g in f["particles"].values():
+            g.attrs["total_mass"] = float(np.sum(g["mass"][()], dtype=np.float64))
     return dst
 
 

@@ -16,6 +16,7 @@ import pytest
 from scipy import optimize
 
 from icgen.cli import main
+from icgen.errors import ModelError
 from icgen.diagnostics import drift
 from icgen.integrate import Orbits, pericentre, substeps
 from icgen.units import G, TIME_UNIT_GYR
@@ -169,6 +170,54 @@ def test_gas_is_listed_but_not_integrated():
     assert list(res.components) == ["halo"] and res.settings["particles"] == 3000
     assert "gas" in res.settings["not_integrated"]
     assert "not integrated: gas" in drift.format_report(res)
+
+
+def test_a_run_that_overflows_is_not_trusted_and_exits_3(tmp_path):
+    # a valid particle 1e-150 kpc from a point mass: GM/r^2 ~ 4e302 (km/s)^2/kpc kicks it
+    # so hard that r^2 and v^2 overflow (IEEE 754) within the first steps, and its orbit
+    # turns non-finite; the run must say so and exit 3, not 0 or 1
+    import warnings
+    from icgen import sampling
+    model = model_from_components({
+        "bh": {"kind": "point_mass", "mass": "1e8 Msun"},
+        "halo": {"kind": "halo", "profile": "hernquist", "mass": "1e11 Msun",
+                 "scale_radius": "8 kpc", "particles": 2000}})
+    with warnings.catch_warnings(), np.errstate(all="ignore"):
+        warnings.simplefilter("ignore")
+        parts = sampling.sample(model)
+        parts["halo"]["position"][0] = [1e-150, 0.0, 0.0]
+        parts["halo"]["velocity"][0] = 0.0
+        res = drift.run_drift(model, parts, 0.02, outputs=2)
+    assert res.exit_status == drift.UNTRUSTED_STATUS == 3 and not res.trusted
+    assert res.integration["nonfinite_particles"] == 1
+    assert "1 of 2000 particles reached a non-finite" in res.integration["reason"]
+    text = drift.format_report(res)
+    assert text.splitlines()[-1] == ("INTEGRATION NOT TRUSTWORTHY (exit status 3): "
+                                     + res.integration["reason"])
+    res.write_json(tmp_path / "d.json")                   # no NaN in the file (JSON null)
+    data = json.load(open(tmp_path / "d.json"))
+    assert data["integration"]["trusted"] is False and data["energy"]["p99"] is None
+
+
+def test_energy_error_above_the_bar_is_not_trusted(small_model):
+    # one global step of 20 Myr, ~1/10 of the inner disk's orbital time: the leapfrog's
+    # energy error (~(Omega dt)^2, Hairer et al. 2003) is far above the 1e-4 bar
+    model, parts = small_model
+    res = drift.run_drift(model, parts, 0.2, step=0.02, outputs=2)
+    assert res.energy["p99"] > drift.ENERGY_BAR
+    assert res.exit_status == 3 and "above the 0.0001 bar" in res.integration["reason"]
+    # verdict alone: the bar is inclusive, NaN fails
+    assert drift.integration_verdict(drift.ENERGY_BAR, 0, 10)["trusted"]
+    assert not drift.integration_verdict(float("nan"), 0, 10)["trusted"]
+
+
+def test_particles_with_nan_are_refused(small_model):
+    model, parts = small_model
+    parts = {n: dict(p) for n, p in parts.items()}
+    parts["disk"]["mass"] = parts["disk"]["mass"].copy()
+    parts["disk"]["mass"][3] = np.nan
+    with pytest.raises(ModelError, match=r"particles\['disk'\]\['mass'\]: row 3 is nan"):
+        drift.run_drift(model, parts, 0.01, outputs=1)
 
 
 def test_force_field_equals_evaluate(default_model):
@@ -447,7 +496,8 @@ CLI_RUN = ("--time", "0.4 Gyr", "--step", "1 Myr", "--sample", "20000")
 def test_cli_flags_a_disk_rotating_too_slowly(snapshots, tmp_path, capsys):
     good, slow = snapshots
     report = str(tmp_path / "slow")
-    status, out, err = _run(capsys, slow, *CLI_RUN, "--report", report)
+    # the default per-particle steps meet the energy bar, so a failed drift is exit 1
+    status, out, err = _run(capsys, slow, *CLI_RUN[:2], *CLI_RUN[4:], "--report", report)
     assert status == 1, out + err
     data = json.load(open(os.path.join(report, "drift.json")))
     assert os.path.getsize(os.path.join(report, "drift.png")) > 10000
@@ -468,9 +518,15 @@ def test_cli_flags_a_disk_rotating_too_slowly(snapshots, tmp_path, capsys):
                         and q["quantity"] == "median_abs_z" and q["bin_kpc"][1] <= 12.0])
     assert thinning(data) < thinning(good_data) - 0.05
     # one global 1 Myr step (for speed) is too coarse for the 1e-4 energy bar in the
-    # inner disk (measured p99 ~ 1e-3): the report says so
+    # inner disk (measured p99 ~ 9e-4): the run is not trustworthy, which the report and
+    # the JSON say in one line, and the exit status (3) is not that of a failed drift
     assert good_data["steps"]["mode"] == "global" and good_data["settings"]["seed"] == 5
-    assert "above the 0.0001 bar" in out
+    assert status == drift.UNTRUSTED_STATUS == 3
+    assert good_data["integration"]["trusted"] is False
+    assert "above the 0.0001 bar" in good_data["integration"]["reason"]
+    assert [line for line in out.splitlines() if "NOT TRUSTWORTHY" in line] == [
+        f"INTEGRATION NOT TRUSTWORTHY (exit status 3): {good_data['integration']['reason']}"]
+    assert data["integration"]["trusted"] is True
 
 
 @pytest.mark.parametrize("args, key", [
@@ -483,6 +539,9 @@ def test_cli_flags_a_disk_rotating_too_slowly(snapshots, tmp_path, capsys):
     (("--time", "1 Gyr", "--seed", "-3"), "--seed"),
     (("--time", "1 Gyr", "--outputs", "0"), "--outputs"),
     (("--time", "1 Gyr", "--threshold", "nan"), "--threshold"),
+    (("--time", "1e100 Gyr"), "(0, 100] Gyr"),          # positions used to overflow
+    (("--time", "101 Gyr"), "(0, 100] Gyr"),
+    (("--time", "1 Gyr", "--step", "1e-30 Gyr"), "--step"),    # step count overflow
 ])
 def test_cli_bad_options_exit_2_and_write_nothing(snapshots, tmp_path, capsys, args, key):
     report = tmp_path / "report"

@@ -1,4 +1,5 @@
-"""Snapshot writer and reader alone: round trips, units, guards, schema (DESIGN.md section 6).
+"""Snapshot writer and reader alone: round trips, units, guards, schema (README.md,
+"Snapshot file format").
 
 The particles here are invented (random numbers from a seeded generator): the writer is
 checked for storing exactly what it is given, independently of the samplers.
@@ -299,7 +300,12 @@ def test_writer_rejects_bad_options(tmp_path):
 def test_gas_internal_energy_is_stored_in_velocity_unit_squared(tmp_path):
     # schema: gas particles also carry internal_energy (specific, velocity_unit^2)
     from types import SimpleNamespace
-    spec = make_spec(velocity="m/s")
+    # the stored model must have the file's components (the reader checks it)
+    spec = spec_from_dict({
+        "model": {"name": "gas writer test", "seed": 3},
+        "output": {"length_unit": "kpc", "velocity_unit": "m/s", "mass_unit": "1e10 Msun"},
+        "components": {"gas": {"kind": "gas_disk", "mass": "5e7 Msun", "scale_length": "3 kpc",
+                               "temperature": "1e4 K", "particles": 500}}})
     plans = [Plan("gas", "gas_disk", 500)]
     rng = np.random.default_rng(9)
     x, v = rng.normal(0, 5, (500, 3)), rng.normal(0, 100, (500, 3))

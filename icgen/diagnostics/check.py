@@ -531,16 +531,19 @@ def internal_scales(units, path):
 
 
 def read_particles(path):
-    """(GalaxyModel, parts, stored analytic curve) of a snapshot, in internal units."""
-    from ..snapshot import load_model_from_snapshot, read_snapshot
-    snap = read_snapshot(path)
-    model = load_model_from_snapshot(path)
-    scale = internal_scales(snap.units, path)
-    parts = {name: {k: np.asarray(c[k], np.float64) / scale[k] for k in scale if k in c}
-             for name, c in snap.components.items()}
-    curve = {key: np.asarray(v, np.float64) / scale["position" if key == "radius" else "velocity"]
-             for key, v in snap.rotation_curve.items()}
-    return model, parts, curve
+    """(GalaxyModel, parts, stored analytic curve) of a snapshot, in internal units; the
+    file is validated as it is read (icgen.snapshot_read)."""
+    from ..model import GalaxyModel
+    from ..snapshot_read import open_snapshot
+    with open_snapshot(path) as snap:
+        scale = internal_scales(snap.units, path)
+        parts = {name: {k: np.asarray(snap.read(name, k), np.float64) / scale[k]
+                        for k in scale if k in c.keys}
+                 for name, c in snap.components.items()}
+        curve = {key: v / scale["position" if key == "radius" else "velocity"]
+                 for key, v in snap.read_curve().items()}
+        spec = snap.spec
+    return GalaxyModel(spec), parts, curve
 
 
 def _stored_curve_row(model, curve):

@@ -33,6 +33,14 @@ quantity over the recorded times is reported beside it as an empirical check. A 
 flagged beyond ``SIGMA_LIMIT`` times that noise, and fails the test when it is flagged and
 also larger than ``threshold`` (relative).
 
+**Trust and exit status.** The drifts mean something only if the orbits are right: a run
+whose relative energy error has a 99th percentile above ``ENERGY_BAR`` (1e-4), or in
+which any particle reaches a NaN or infinite state, is not trustworthy; the report and
+the JSON (``integration``) say so in one line. Exit status (``DriftResult.exit_status``):
+0 no drift fails; 1 a drift fails the test; 2 bad input (nothing written); 3 the
+integration is not trustworthy (whatever the drifts). ``--time`` is at most
+``MAX_TIME_GYR`` (100 Gyr).
+
 Units: kpc, km/s, Msun; times in Gyr at the edge, kpc/(km/s) inside.
 """
 import json
@@ -47,10 +55,12 @@ import numpy as np
 from ..errors import MISSING, ModelError
 from ..integrate import Orbits, pericentre, substeps
 from ..progress import progress_enabled, stage_bar
+from ..snapshot_read import check_values
 from ..units import TIME_UNIT_GYR, parse_quantity
 from . import measure
 
-__all__ = ["OUTPUTS", "STEP_ACCURACY", "SIGMA_LIMIT", "THRESHOLD", "DriftResult",
+__all__ = ["OUTPUTS", "STEP_ACCURACY", "SIGMA_LIMIT", "THRESHOLD", "ENERGY_BAR",
+           "MAX_TIME_GYR", "UNTRUSTED_STATUS", "DriftResult", "integration_verdict",
            "run_drift", "drift_snapshot", "choose_steps", "measure_state", "subsample",
            "parse_time", "parse_whole", "parse_number", "check_report_dir", "write_report",
            "format_report"]
@@ -78,6 +88,16 @@ THRESHOLD = 0.02
 #: The integrator's relative energy error (99th percentile over particles of the largest
 #: error at the recorded times) should stay below this with the default steps.
 ENERGY_BAR = 1e-4
+#: Longest --time, Gyr: seven Hubble times. Orbits in a frozen potential over more say
+#: nothing about a galaxy, and the steps (a fraction of the output interval, at most
+#: 2^MAX_LEVEL per interval) grow with the time.
+MAX_TIME_GYR = 100.0
+#: Shortest --step, Gyr (1 kyr): finer than the finest default step of any test run
+#: here (6 kyr for 1 Gyr in 40 outputs) and far from an int64 overflow of step counts.
+MIN_STEP_GYR = 1e-6
+#: Exit status of a run whose integration cannot be trusted (energy error above
+#: ENERGY_BAR, or a non-finite state); 1 is "a drift failed the test", 2 bad input.
+UNTRUSTED_STATUS = 3
 #: Bin edges of disk measurements, in scale lengths (2.2 R_d lies in the 2-2.5 bin).
 DISK_EDGES = (0.0, 0.5, 1.0, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0)
 #: Radii (in scale radii) of the enclosed-mass measurements of halos and bulges; the
@@ -96,17 +116,19 @@ TABLE_INNER = 1e-3
 # ------------------------------------------------------------------ input at the edge
 
 
-def parse_time(value, key):
+def parse_time(value, key, lowest=0.0, highest=MAX_TIME_GYR):
     """A time: a string such as ``"2 Gyr"`` or ``"0.5 Myr"``, or a float in Gyr -> float
-    Gyr (> 0); None stays None."""
+    Gyr in (0, highest], and >= ``lowest`` when that is > 0; None stays None."""
     if value is None:
         return None
+    given = value
     if isinstance(value, str):
         value = parse_quantity(value, key, u.Gyr)
     elif isinstance(value, bool) or not isinstance(value, (int, float)):
         value = math.nan
-    if not (math.isfinite(value) and value > 0):
-        raise ModelError(key, value, "must be a positive time, e.g. '2 Gyr'")
+    low = f"[{lowest:g}" if lowest > 0 else "(0"
+    if not (math.isfinite(value) and value > 0 and lowest <= value <= highest):
+        raise ModelError(key, given, f"must be a time in {low}, {highest:g}] Gyr, e.g. '2 Gyr'")
     return float(value)
 
 
@@ -313,6 +335,7 @@ class DriftResult:
     lz: dict
     steps: dict
     timing: dict = field(default_factory=dict)
+    integration: dict = field(default_factory=dict)
 
     @property
     def flagged(self):
@@ -323,8 +346,16 @@ class DriftResult:
         return [q for q in self.quantities if q["failed"]]
 
     @property
+    def trusted(self):
+        """False when the integration itself is not trustworthy (see :func:`integration_verdict`)."""
+        return self.integration.get("trusted", True)
+
+    @property
     def exit_status(self):
-        """1 when a flagged drift exceeds the threshold, else 0."""
+        """3 (UNTRUSTED_STATUS) when the integration is not trustworthy, whatever the
+        drifts; else 1 when a flagged drift exceeds the threshold; else 0."""
+        if not self.trusted:
+            return UNTRUSTED_STATUS
         return 1 if self.failed else 0
 
     def to_dict(self):
@@ -368,6 +399,8 @@ def _layout(model, parts, weights):
             continue
         if p["mass"].size == 0:
             continue
+        for key in ("position", "velocity", "mass"):
+            check_values(np.asarray(p[key], float), key, f"particles[{name!r}][{key!r}]")
         n = p["mass"].size
         scale = comp.R_d if comp.kind == "disk" else comp.scale
         pm = float(np.mean(p["mass"])) * weights.get(name, 1.0)
@@ -428,7 +461,8 @@ def run_drift(model, parts, duration, step=None, outputs=OUTPUTS, threshold=THRE
     orbits = Orbits(pos, vel, model.potential.evaluate, m, model.potential.force_field())
     t_setup = time.perf_counter() - t_start
     t0 = time.perf_counter()
-    records, energy, lz = _integrate(orbits, layout, pos, vel, interval, outputs, quiet)
+    records, energy, lz, nonfinite = _integrate(orbits, layout, pos, vel, interval, outputs,
+                                                quiet)
     t_orbits = time.perf_counter() - t0
     times = [k * duration / outputs for k in range(outputs + 1)]
     step_info.update(python_force_calls=orbits.force_calls, steps_taken=orbits.steps_taken,
@@ -449,20 +483,40 @@ def run_drift(model, parts, duration, step=None, outputs=OUTPUTS, threshold=THRE
         quantities=_drift_rows(layout, records, threshold), energy=energy, lz=lz,
         steps=step_info,
         timing={"setup_s": t_setup, "orbits_s": t_orbits,
-                "total_s": time.perf_counter() - t_start})
+                "total_s": time.perf_counter() - t_start},
+        integration=integration_verdict(energy["p99"], nonfinite, len(orbits)))
+
+
+def integration_verdict(energy_p99, nonfinite, particles):
+    """Whether the orbits can be trusted: every state finite and the 99th percentile of
+    the relative energy error at most ENERGY_BAR. Returns {"trusted", "reason",
+    "energy_p99", "energy_bar", "nonfinite_particles"}; ``reason`` is one line or None."""
+    reason = None
+    if nonfinite:
+        reason = (f"{nonfinite} of {particles} particles reached a non-finite position or "
+                  f"velocity (overflow); shorten --time or the step")
+    elif not energy_p99 <= ENERGY_BAR:       # NaN fails too
+        reason = (f"the energy error (99th percentile {energy_p99:.2g}) is above the "
+                  f"{ENERGY_BAR:g} bar, so drifts may be the integrator's; use a smaller "
+                  f"--step, or more --outputs for a long --time")
+    return {"trusted": reason is None, "reason": reason, "energy_p99": energy_p99,
+            "energy_bar": ENERGY_BAR, "nonfinite_particles": int(nonfinite)}
 
 
 def _integrate(orbits, layout, pos, vel, interval, outputs, quiet):
-    """Advance ``orbits`` by ``outputs`` intervals; measurements at every output and the
-    conservation of E and L_z (per particle: the largest error over the outputs)."""
+    """Advance ``orbits`` by ``outputs`` intervals; measurements at every output, the
+    conservation of E and L_z (per particle: the largest error over the outputs) and the
+    most particles in a non-finite state at any output."""
     e0, lz0 = orbits.energy(), orbits.lz()
     l0 = np.linalg.norm(np.cross(pos, vel), axis=1)[orbits.order]
     records = [measure_state(layout, pos, vel)]
     e_max, l_max = np.zeros(len(orbits)), np.zeros(len(orbits))
     e_series, l_series = [_error_stats(e_max)], [_error_stats(l_max)]
+    nonfinite = 0
     with stage_bar("drift", outputs, progress_enabled(quiet), unit="output") as bar:
         for _ in range(outputs):
             orbits.advance(interval)
+            nonfinite = max(nonfinite, orbits.nonfinite())
             de, dl = _conservation(orbits, e0, lz0, l0)
             np.maximum(e_max, de, out=e_max)
             np.maximum(l_max, dl, out=l_max)
@@ -471,7 +525,7 @@ def _integrate(orbits, layout, pos, vel, interval, outputs, quiet):
             records.append(measure_state(layout, orbits.position, orbits.velocity))
             bar.update(1)
     return (records, {**_error_stats(e_max), "bar": ENERGY_BAR, "series": e_series},
-            {**_error_stats(l_max), "series": l_series})
+            {**_error_stats(l_max), "series": l_series}, nonfinite)
 
 
 def _drift_rows(layout, records, threshold):
@@ -571,16 +625,14 @@ def recentre(parts):
 CENTRE_PARTICLES = 2_000_000
 
 
-def read_rows(path, rows, attrs):
-    """Chosen rows of a snapshot (see icgen.snapshot.read_rows) in internal units: kpc,
-    km/s, Msun; ``attrs`` are its root attributes (for the units)."""
-    from .. import snapshot
+def read_rows(snap, rows):
+    """Chosen rows of an open snapshot (icgen.snapshot_read.SnapshotFile.read_rows) in
+    internal units: kpc, km/s, Msun."""
     from .check import internal_scales
-    scale = internal_scales({k: attrs[f"{k}_unit"] for k in ("length", "velocity", "mass")},
-                            path)
+    scale = internal_scales(snap.units, snap.path)
     keys = ("position", "velocity", "mass")
     return {n: {k: np.asarray(c[k], np.float64) / scale[k] for k in keys}
-            for n, c in snapshot.read_rows(path, rows).items()}
+            for n, c in snap.read_rows(rows).items()}
 
 
 def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OUTPUTS,
@@ -590,32 +642,35 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
     ``duration`` and ``step`` are strings with a time unit ("2 Gyr", "0.5 Myr") or
     floats in Gyr; ``sample`` the number of particles to integrate (None: all), drawn
     with ``seed`` (None: the snapshot's seed). Every option is checked before the file is
-    read; a bad one raises ModelError naming it.
+    read; a bad one raises ModelError naming it. The file is validated on opening and its
+    values as they are read (icgen.snapshot_read).
     """
     duration = parse_time(duration, "--time")
     if duration is None:
         raise ModelError("--time", MISSING, "required, e.g. '2 Gyr'")
-    step_text, step = step, parse_time(step, "--step")
+    step_text, step = step, parse_time(step, "--step", lowest=MIN_STEP_GYR)
     if step is not None and step > duration:
         raise ModelError("--step", step_text, f"is longer than --time ({duration:g} Gyr)")
     sample = parse_whole(sample, "--sample", 1)
     seed = parse_whole(seed, "--seed", 0)
     outputs = parse_whole(outputs, "--outputs", 1, OUTPUTS)
     threshold = parse_number(threshold, "--threshold", THRESHOLD)
-    from ..snapshot import load_model_from_snapshot, read_header
+    from ..model import GalaxyModel
+    from ..snapshot_read import open_snapshot
     t0 = time.perf_counter()
-    attrs, header = read_header(path)
-    model = load_model_from_snapshot(path)
-    seed = int(attrs["seed"]) if seed is None else seed
-    counts = {n: int(h["count"]) for n, h in header.items()}
-    rows, _ = choose_rows(counts, CENTRE_PARTICLES, seed)
-    c, v = density_centre(read_rows(path, rows, attrs))
+    with open_snapshot(path) as snap:
+        seed = int(snap.attrs["seed"]) if seed is None else seed
+        counts = {n: c.count for n, c in snap.components.items()}
+        rows, _ = choose_rows(counts, CENTRE_PARTICLES, seed)
+        c, v = density_centre(read_rows(snap, rows))
+        skip = [n for n, k in snap.components.items() if k.kind in NOT_INTEGRATED]
+        rows, weights = choose_rows({n: k for n, k in counts.items() if n not in skip},
+                                    sample, seed)
+        chosen = {n: {**p, "position": p["position"] - c, "velocity": p["velocity"] - v}
+                  for n, p in read_rows(snap, rows).items()}
+        spec = snap.spec
+    model = GalaxyModel(spec)
     shift = {"position_kpc": c.tolist(), "velocity_kms": v.tolist()}
-    skip = [n for n in counts if model.components[n].kind in NOT_INTEGRATED]
-    rows, weights = choose_rows({n: k for n, k in counts.items() if n not in skip}, sample,
-                                seed)
-    chosen = {n: {**p, "position": p["position"] - c, "velocity": p["velocity"] - v}
-              for n, p in read_rows(path, rows, attrs).items()}
     chosen.update({n: {"position": np.zeros((0, 3)), "velocity": np.zeros((0, 3)),
                        "mass": np.zeros(0)} for n in skip})       # listed, not integrated
     parts_total = sum(counts.values())
@@ -646,9 +701,7 @@ def format_report(res, all_rows=False):
                      f"{st['step_myr_median']:.3g}); {st['capped']} particles at the finest "
                      f"allowed step")
     lines.append(f"energy error |dE/E| (max over time): median {e['median']:.2e}, 99th "
-                 f"percentile {e['p99']:.2e}, max {e['max']:.2e}"
-                 + ("" if e["p99"] < e["bar"] else f"  [above the {e['bar']:g} bar: "
-                    f"results near the centre are unreliable; use a smaller --step]"))
+                 f"percentile {e['p99']:.2e}, max {e['max']:.2e} (bar {e['bar']:g})")
     lines.append(f"L_z error |dL_z|/|L| (max over time): median {res.lz['median']:.2e}, "
                  f"max {res.lz['max']:.2e}")
     for name, why in s.get("not_integrated", {}).items():
@@ -675,6 +728,9 @@ def format_report(res, all_rows=False):
                                    "drift %", "noise %", "sigma", ""], rows))
     lines.append("drift = (end - start)/|start|; noise = sqrt(se_start^2 + se_end^2)/|start| "
                  "(same particles, phase-mixed limit)")
+    if not res.trusted:
+        lines.append(f"INTEGRATION NOT TRUSTWORTHY (exit status {UNTRUSTED_STATUS}): "
+                     f"{res.integration['reason']}")
     return "\n".join(lines)
 
 

@@ -439,6 +439,10 @@ def plot_stability(rep, path):
     return path
 
 
+#: File name endings read as snapshots by :func:`load_source` even when not HDF5.
+SNAPSHOT_SUFFIXES = (".h5", ".hdf5", ".hdf")
+
+
 def load_source(source):
     """GalaxyModel from a model file (TOML), the default model (None) or an icgen snapshot
     (HDF5: the model stored in its ``config``)."""
@@ -448,7 +452,10 @@ def load_source(source):
 
     from ..config import load_spec
     from ..model import GalaxyModel
-    if source is not None and os.path.isfile(source) and h5py.is_hdf5(source):
-        from ..snapshot import load_model_from_snapshot
+    # an HDF5 file, or a file named as one (so that a damaged snapshot gets the
+    # snapshot reader's error, not the TOML parser's)
+    if source is not None and os.path.isfile(source) and (
+            h5py.is_hdf5(source) or str(source).lower().endswith(SNAPSHOT_SUFFIXES)):
+        from ..snapshot_read import load_model_from_snapshot
         return load_model_from_snapshot(source)
     return GalaxyModel(load_spec(source))

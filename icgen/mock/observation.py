@@ -163,10 +163,10 @@ def tracer_particles(source, tracer, model=None):
     -------
     (particles dict, kind, model)
     """
-    from ..snapshot import Snapshot, read_snapshot
+    from ..snapshot_read import Snapshot, check_values, read_snapshot
 
     if isinstance(source, (str, os.PathLike)):
-        source = read_snapshot(source)
+        source = read_snapshot(source)          # validated as it is read
     if isinstance(source, Snapshot):
         comps = source.components
         _check_tracer(tracer, {n: c["kind"] for n, c in comps.items()})
@@ -189,6 +189,8 @@ def tracer_particles(source, tracer, model=None):
                          "must be a snapshot path, a Snapshot or a dict of particles")
     kind = model.components[tracer].kind if tracer in model.components else comps[tracer]["kind"]
     parts = {k: np.asarray(comps[tracer][k], float) * scale[k] for k in scale}
+    for k, values in parts.items():     # particles given in memory are checked here too
+        check_values(values, k, f"particles[{tracer!r}][{k!r}]")
     return parts, kind, model
 
 

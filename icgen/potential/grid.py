@@ -43,12 +43,13 @@ def _asinh(u):
 @njit(cache=True, error_model="numpy", inline="always")
 def locate(R, z, s, h, x_max, core, half):
     """Cell of (R, z) on the grid: (inside, ix, iy, tx, ty). ``inside`` is False beyond
-    12 cells of the edge (the mirror rule of the spline prefilter spoils the last cells)
-    or within ``core`` (asinh units) of the centre."""
+    12 cells of the edge (the mirror rule of the spline prefilter spoils the last cells),
+    within ``core`` (asinh units) of the centre, and for a NaN or infinite R or z (the
+    comparisons are written so that NaN fails them: int(NaN) would index anywhere)."""
     x = _asinh(R / s)
     y = _asinh(z / s)
     edge = x_max - 12 * h
-    if abs(x) > edge or abs(y) > edge or (abs(x) < core and abs(y) < core):
+    if not (abs(x) <= edge and abs(y) <= edge) or (abs(x) < core and abs(y) < core):
         return False, 0, 0, 0.0, 0.0
     gx = x / h + half           # > 0 inside
     gy = y / h + half

@@ -1,7 +1,9 @@
 """Numba kernels that add potential and forces of one piece to output arrays.
 
 All take float64 arrays R, z (kpc) and accumulate phi ((km/s)^2) and the force per unit mass
-F_R, F_z ((km/s)^2/kpc, F = -grad Phi) in place. They never raise, print or touch units.
+F_R, F_z ((km/s)^2/kpc, F = -grad Phi) in place. They never raise, print or touch units,
+and never index a table with a NaN: a non-finite point gives NaN or inf, never a read out
+of bounds (GalaxyPotential.evaluate then returns NaN there).
 """
 import math
 
@@ -108,12 +110,14 @@ def _radial(r, k, j, b0, b1, b2, b3, h, rnodes, phi_t, dphi_t, d2phi_t):
 
 @njit(cache=True, error_model="numpy", inline="always")
 def _locate(r, lnr0, h, rnodes):
-    """Interval index j and fraction t of r on the ln r grid (-1 / n-1 outside)."""
+    """Interval index j and fraction t of r on the ln r grid (-1 / n-1 outside). A NaN r
+    counts as outside (n-1: the outer power law, which returns NaN): int(NaN) would index
+    anywhere."""
     n = rnodes.shape[0]
     if r <= rnodes[0]:
         return -1, 0.0
     u = (math.log(r) - lnr0) / h
-    if u >= n - 1:
+    if not u < n - 1:
         return n - 1, 0.0
     j = int(u)
     return j, u - j

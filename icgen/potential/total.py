@@ -94,17 +94,27 @@ class GalaxyPotential:
 
         ``component`` limits the sum to one named component (None: all; the exact sum is
         always used for one component). The total uses the interpolation grid unless
-        ``exact`` is True (relative difference ~1e-5, see potential/grid.py)."""
+        ``exact`` is True (relative difference ~1e-5, see potential/grid.py). Points with
+        a NaN or infinite R or z get NaN in all three; the others are not affected."""
         R, z = np.broadcast_arrays(np.asarray(R, float), np.asarray(z, float))
         shape = R.shape
         Rf, zf = np.ascontiguousarray(R).ravel(), np.ascontiguousarray(z).ravel()
-        if component is not None:
-            out = self._exact(Rf, zf, [component])
-        elif exact or self.grid is None:
-            out = self._exact(Rf, zf, list(self.components))
+        good = np.isfinite(Rf) & np.isfinite(zf)
+        if good.all():
+            out = self._evaluate_flat(Rf, zf, component, exact)
         else:
-            out = self._gridded(Rf, zf)
+            out = tuple(np.full(Rf.shape, np.nan) for _ in range(3))
+            for full, part in zip(out, self._evaluate_flat(Rf[good], zf[good], component,
+                                                            exact)):
+                full[good] = part
         return tuple(a.reshape(shape) for a in out)
+
+    def _evaluate_flat(self, Rf, zf, component, exact):
+        if component is not None:
+            return self._exact(Rf, zf, [component])
+        if exact or self.grid is None:
+            return self._exact(Rf, zf, list(self.components))
+        return self._gridded(Rf, zf)
 
     def _gridded(self, Rf, zf):
         """Grid inside, exact smooth pieces outside it, then the closed-form spheres; the
