@@ -27,6 +27,7 @@ compares each ``total_mass`` with the sum of its masses.
 Any failure raises a one-line :class:`icgen.errors.ModelError` naming the file, the
 attribute or dataset, and the rule (exit status 2 in the CLI).
 """
+import dataclasses
 import math
 import os
 import tomllib
@@ -38,11 +39,13 @@ import numpy as np
 
 from . import __version__
 from .errors import MISSING, ModelError, show_value
+from .frame import Frame, galaxy_frame
 from .snapshot import (GAS_KIND, READABLE_VERSIONS, SCHEMA, _ROOT_KEYS, _ROOT_VECTORS,
                        gravitational_constant)
 
 __all__ = ["SLAB_ROWS", "SnapshotFile", "Snapshot", "open_snapshot", "read_header",
-           "read_rows", "read_snapshot", "load_model_from_snapshot", "describe"]
+           "read_rows", "read_snapshot", "load_model_from_snapshot", "describe",
+           "internal_scales"]
 
 #: Rows read (and checked) at a time: 2^20 rows of (N, 3) float64 are 24 MiB.
 SLAB_ROWS = 1 << 20
@@ -142,6 +145,32 @@ class SnapshotFile:
     def units(self):
         """{"length", "velocity", "mass"} -> unit string."""
         return {k: self.attrs[f"{k}_unit"] for k in ("length", "velocity", "mass")}
+
+    @property
+    def scales(self):
+        """Dataset name -> divisor taking the file's values to internal units."""
+        return internal_scales(self.units, self.path)
+
+    def read_internal(self, name, key):
+        """A whole dataset in internal units (kpc, km/s, Msun, (km/s)^2), float64."""
+        values = np.asarray(self.read(name, key), np.float64)
+        return values / self.scales[key] if key in self.scales else values
+
+    def read_rows_internal(self, rows):
+        """:meth:`read_rows` in internal units, float64 (ids left out)."""
+        scale = self.scales
+        return {name: {k: np.asarray(v, np.float64) / scale[k] for k, v in comp.items()}
+                for name, comp in self.read_rows(rows).items()}
+
+    def frame(self):
+        """The galaxy's Frame (icgen.frame): found from at most frame.MAX_PARTICLES
+        particles, a random subset seeded with the file's seed, the same subset
+        :func:`icgen.frame.galaxy_frame` picks from the particles in memory."""
+        from .frame import subset_rows, MAX_PARTICLES
+        counts = {n: c.count for n, c in self.components.items()}
+        rows, _ = subset_rows(counts, MAX_PARTICLES, int(self.attrs["seed"]))
+        return galaxy_frame(self.read_rows_internal(rows), int(self.attrs["seed"]),
+                            subset=False)
 
     def _where(self, name, key):
         return f"{self.path} dataset /particles/{name}/{key}"
@@ -317,11 +346,23 @@ def _root_attrs(f, path):
     return attrs
 
 
+#: Keys renamed since: {old key: new key}. A stored config is what icgen itself wrote, so it
+#: is read with the names of its time (a model file with an old key is an error that names
+#: the new one).
+_RENAMED_KEYS = {"spin": "retrograde_flip_fraction"}
+
+
 def _stored_spec(config, path):
     """ModelSpec from the ``config`` attribute; a bad one names the attribute."""
-    from .config import spec_from_toml_text
+    from .config import _parse_toml, spec_from_dict
+    source = f"{path} attribute config"
     try:
-        return spec_from_toml_text(config, source=f"{path} attribute config")
+        data = _parse_toml(config, source)
+        for table in (data.get("components") or {}).values():
+            for old, new in _RENAMED_KEYS.items():
+                if isinstance(table, dict) and old in table and new not in table:
+                    table[new] = table.pop(old)
+        return spec_from_dict(data)
     except ModelError as exc:
         if exc.key.startswith(f"{path} attribute config"):
             raise
@@ -489,6 +530,51 @@ class Snapshot:
     @property
     def model_name(self):
         return _model_name(self.config)
+
+    def internal(self):
+        """name -> dict of float64 arrays in internal units (kpc, km/s, Msun, (km/s)^2):
+        position, velocity, mass and, for gas, internal_energy."""
+        scale = internal_scales(self.units, self.path)
+        value = lambda a: np.asarray(getattr(a, "value", a), np.float64)
+        return {name: {k: value(c[k]) / scale[k] for k in scale if k in c}
+                for name, c in self.components.items()}
+
+    @property
+    def frame(self):
+        """The galaxy's Frame (icgen.frame: position kpc, velocity km/s), found as every
+        command finds it (the same particles, seeded with the file's seed)."""
+        if "_frame" not in self.__dict__:
+            self.__dict__["_frame"] = galaxy_frame(self.internal(), int(self.seed))
+        return self.__dict__["_frame"]
+
+    def centred(self):
+        """A copy with positions and velocities moved into the galaxy's frame: its centre
+        at rest at the origin (file units, Quantities kept)."""
+        scale = internal_scales(self.units, self.path)
+        shift = {"position": self.frame.position * scale["position"],
+                 "velocity": self.frame.velocity * scale["velocity"]}
+        comps = {}
+        for name, c in self.components.items():
+            comps[name] = dict(c)
+            for key, d in shift.items():
+                unit = getattr(c[key], "unit", None)
+                comps[name][key] = c[key] - (d * unit if unit is not None else d)
+        out = dataclasses.replace(self, components=comps)
+        f = self.frame
+        out.__dict__["_frame"] = Frame(np.zeros(3), np.zeros(3), f.position_error,
+                                       f.velocity_error)
+        return out
+
+
+def internal_scales(units, where):
+    """Divisors taking a snapshot's datasets to internal units (kpc, km/s, Msun): dataset
+    name -> factor, from ``units`` {"length", "velocity", "mass"} (``where`` names the
+    file in errors)."""
+    from .units import unit_scale
+    scale = {key: unit_scale(units[kind], kind, f"{where}:{kind}_unit") for key, kind in
+             (("position", "length"), ("velocity", "velocity"), ("mass", "mass"))}
+    scale["internal_energy"] = scale["velocity"] ** 2
+    return scale
 
 
 def read_header(path):

@@ -217,7 +217,7 @@ def test_correct_snapshot_passes_and_writes_report(small_snapshot, tmp_path, cap
                 ("mean v_phi", "disk"), ("sigma_R", "disk"), ("sigma_phi", "disk"),
                 ("sigma_z", "disk"), ("sigma_r", "halo"), ("sigma_theta", "halo"),
                 ("sigma_phi", "halo"), ("beta", "bulge"), ("Toomre Q", "disk"),
-                ("centre of mass", "all"), ("centre-of-mass velocity", "all"),
+                ("centre of mass", "all"), ("galaxy centre", "all"),
                 ("angular momentum / M", "disk"), ("virial 2T/|W|", "total"),
                 ("stored analytic curve", "all")}
     assert expected <= quantities
@@ -228,7 +228,7 @@ def test_correct_snapshot_passes_and_writes_report(small_snapshot, tmp_path, cap
 
 
 # Rows that depend only on positions and masses: scaling velocities cannot move them.
-STATIC = {"v_c midplane", "surface density", "vertical profile", "density", "density centre",
+STATIC = {"v_c midplane", "surface density", "vertical profile", "density", "galaxy centre",
           "centre of mass", "stored analytic curve"}
 
 

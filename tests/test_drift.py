@@ -18,6 +18,7 @@ from scipy import optimize
 from icgen.cli import main
 from icgen.errors import ModelError
 from icgen.diagnostics import drift
+from icgen.frame import Frame
 from icgen.integrate import Orbits, pericentre, substeps
 from icgen.units import G, TIME_UNIT_GYR
 
@@ -187,7 +188,9 @@ def test_a_run_that_overflows_is_not_trusted_and_exits_3(tmp_path):
         parts = sampling.sample(model)
         parts["halo"]["position"][0] = [1e-150, 0.0, 0.0]
         parts["halo"]["velocity"][0] = 0.0
-        res = drift.run_drift(model, parts, 0.02, outputs=2)
+        # the origin as the frame, so that the particle stays 1e-150 kpc from the hole
+        origin = Frame(np.zeros(3), np.zeros(3))
+        res = drift.run_drift(model, parts, 0.02, outputs=2, frame=origin)
     assert res.exit_status == drift.UNTRUSTED_STATUS == 3 and not res.trusted
     assert res.integration["nonfinite_particles"] == 1
     assert "1 of 2000 particles reached a non-finite" in res.integration["reason"]

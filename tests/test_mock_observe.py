@@ -235,7 +235,7 @@ def test_gas_tracer_lines_have_the_sound_speed():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         parts = sample(model)
-    gas, kind, _ = tracer_particles(parts, "gas", model)
+    gas, kind, _, _ = tracer_particles(parts, "gas", model)
     assert kind == "gas_disk"
     widths = line_widths(gas, kind, model, "gas", Instrument())
     np.testing.assert_allclose(widths, model.components["gas"].cs)

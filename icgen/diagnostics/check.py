@@ -34,6 +34,7 @@ import numpy as np
 from scipy import integrate, optimize
 
 from ..errors import MISSING, ModelError
+from ..frame import POSITION_ERROR_FACTOR, galaxy_frame
 from . import measure
 from .report_plots import CheckResult, row as _row, write_outputs
 from .stability import toomre_q
@@ -122,19 +123,24 @@ def _density_row(quantity, name, unit, centres, measured_mass, fraction, size, t
 # ------------------------------------------------------------------ rows
 
 
-def _centre_rows(parts, centre, n_sigma):
-    """Density centre, centre of mass and centre-of-mass velocity against zero, within
-    the noise of a mass-weighted mean of the particles."""
+def _centre_rows(parts, frame, n_sigma):
+    """Where the galaxy is in the file (its frame, icgen.frame: shown, not tested, since a
+    displaced or moving galaxy is no error), and the centre of mass against the galaxy's
+    centre, within the noise of a mass-weighted mean of the particles and of the centre's
+    estimate (its standard error times frame.POSITION_ERROR_FACTOR). The frame's velocity
+    is the particles' mean velocity itself, so it has no row of its own to test."""
     cat = lambda key: np.concatenate([p[key] for p in parts.values()])
-    m = cat("mass")
-    x_cm, ex = measure.weighted_mean(cat("position"), m)
-    v_cm, ev = measure.weighted_mean(cat("velocity"), m)
-    note = "0 within the noise of a mass-weighted mean of the particles"
-    return [_row(quantity, "all", unit, [0, 1, 2], value, np.zeros(3), err, err > 0, n_sigma,
-                 note, ["x", "y", "z"])
-            for quantity, unit, value, err in (
-                ("density centre", "kpc", centre, ex), ("centre of mass", "kpc", x_cm, ex),
-                ("centre-of-mass velocity", "km/s", v_cm, ev))]
+    x_cm, ex = measure.weighted_mean(cat("position"), cat("mass"))
+    ex = np.hypot(ex, POSITION_ERROR_FACTOR * frame.position_error)
+    xyz = ["x", "y", "z"]
+    shown = "the galaxy's centre in the file; every other row is measured about it"
+    return [_row("galaxy centre", "all", "kpc", [0, 1, 2], frame.position, np.zeros(3),
+                 frame.position_error, np.zeros(3, bool), n_sigma, shown, xyz),
+            _row("galaxy velocity", "all", "km/s", [0, 1, 2], frame.velocity, np.zeros(3),
+                 frame.velocity_error, np.zeros(3, bool), n_sigma, shown, xyz),
+            _row("centre of mass", "all", "kpc", [0, 1, 2], x_cm, frame.position, ex, ex > 0,
+                 n_sigma, "the galaxy's centre within the noise of the particles' mean and "
+                          "the centre's", xyz)]
 
 
 def _rotation_curve_rows(model, local, radii, opts, n_sigma):
@@ -485,16 +491,14 @@ def check_particles(model, parts, n_sigma=N_SIGMA, softening=None, azimuths=AZIM
     keys = ("position", "velocity", "mass", "internal_energy")
     parts = {n: {k: np.asarray(parts[n][k], np.float64) for k in keys if k in parts[n]}
              for n in model.components}
-    cat = lambda key: np.concatenate([p[key] for p in parts.values()])
     timing = {}
-    centre = _timed(timing, "centre", lambda: measure.shrinking_sphere_centre(cat("position"),
-                                                                              cat("mass")))
+    frame = _timed(timing, "frame", lambda: galaxy_frame(parts, model.spec.seed))
     res = CheckResult(model.name, None if path is None else str(path), float(n_sigma),
                       {n: int(p["mass"].size) for n, p in parts.items()},
                       {n: c.kind for n, c in model.components.items()},
-                      [float(c) for c in centre], opts, timing=timing)
-    res.rows += _centre_rows(parts, centre, n_sigma)
-    local = {n: dict(p, position=p["position"] - centre) for n, p in parts.items()}
+                      frame.as_dict(), opts, timing=timing)
+    res.rows += _centre_rows(parts, frame, n_sigma)
+    local = frame.to_galaxy(parts)
     res.rows += _timed(timing, "rotation curve", lambda: _rotation_curve_rows(
         model, local, ring_radii(model, softening), opts, n_sigma))
     preds = _timed(timing, "disk moments", lambda: {
@@ -520,26 +524,16 @@ def _timed(timing, label, fn):
     return out
 
 
-def internal_scales(units, path):
-    """Divisors taking a snapshot's datasets to internal units (kpc, km/s, Msun):
-    dataset name -> factor, from ``units`` {"length", "velocity", "mass"} of ``path``."""
-    from ..units import unit_scale
-    scale = {key: unit_scale(units[kind], kind, f"{path}:{kind}_unit") for key, kind in
-             (("position", "length"), ("velocity", "velocity"), ("mass", "mass"))}
-    scale["internal_energy"] = scale["velocity"] ** 2
-    return scale
-
-
 def read_particles(path):
-    """(GalaxyModel, parts, stored analytic curve) of a snapshot, in internal units; the
-    file is validated as it is read (icgen.snapshot_read)."""
+    """(GalaxyModel, parts, stored analytic curve) of a snapshot, in internal units, as
+    stored (check_particles finds the galaxy's frame); the file is validated as it is read
+    (icgen.snapshot_read)."""
     from ..model import GalaxyModel
     from ..snapshot_read import open_snapshot
     with open_snapshot(path) as snap:
-        scale = internal_scales(snap.units, path)
-        parts = {name: {k: np.asarray(snap.read(name, k), np.float64) / scale[k]
-                        for k in scale if k in c.keys}
+        parts = {name: {k: snap.read_internal(name, k) for k in snap.scales if k in c.keys}
                  for name, c in snap.components.items()}
+        scale = snap.scales
         curve = {key: v / scale["position" if key == "radius" else "velocity"]
                  for key, v in snap.read_curve().items()}
         spec = snap.spec

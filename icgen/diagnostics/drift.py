@@ -53,6 +53,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import MISSING, ModelError
+from ..frame import galaxy_frame, subset_rows
 from ..integrate import Orbits, pericentre, substeps
 from ..progress import progress_enabled, stage_bar
 from ..snapshot_read import check_values
@@ -141,31 +142,10 @@ def check_report_dir(path):
         raise ModelError("--report", path, f"folder {parent!r} does not exist")
 
 
-def choose_rows(counts, total, seed):
-    """Rows of a random subsample of ``total`` particles, proportional per component.
-
-    ``counts`` maps component -> particle count. Returns (rows, weights): sorted row
-    indices per component (all rows when ``total`` is None or not smaller than the sum)
-    and the mass factor count / chosen.
-    """
-    everything = sum(counts.values())
-    if total is None or total >= everything:
-        return {n: np.arange(c) for n, c in counts.items()}, {n: 1.0 for n in counts}
-    rng = np.random.default_rng(seed)
-    rows, weights = {}, {}
-    for name, c in counts.items():
-        k = int(round(total * c / everything))
-        if k == 0:
-            continue
-        rows[name] = np.sort(rng.choice(c, size=k, replace=False))
-        weights[name] = c / k
-    return rows, weights
-
-
 def subsample(parts, total, seed):
     """A random subsample of ``total`` particles of in-memory ``parts``, proportional per
-    component (:func:`choose_rows`). Returns (parts, weights)."""
-    rows, weights = choose_rows({n: p["mass"].size for n, p in parts.items()}, total, seed)
+    component (:func:`icgen.frame.subset_rows`). Returns (parts, weights)."""
+    rows, weights = subset_rows({n: p["mass"].size for n, p in parts.items()}, total, seed)
     if total is None or all(w == 1.0 for w in weights.values()):
         return parts, weights
     return {n: {key: parts[n][key][idx] for key in ("position", "velocity", "mass")}
@@ -399,8 +379,6 @@ def _layout(model, parts, weights):
             continue
         if p["mass"].size == 0:
             continue
-        for key in ("position", "velocity", "mass"):
-            check_values(np.asarray(p[key], float), key, f"particles[{name!r}][{key!r}]")
         n = p["mass"].size
         scale = comp.R_d if comp.kind == "disk" else comp.scale
         pm = float(np.mean(p["mass"])) * weights.get(name, 1.0)
@@ -427,7 +405,7 @@ def _conservation(orbits, e0, lz0, l0):
 
 
 def run_drift(model, parts, duration, step=None, outputs=OUTPUTS, threshold=THRESHOLD,
-              weights=None, quiet=True, source="particles"):
+              weights=None, quiet=True, source="particles", frame=None):
     """Integrate particles in the model's frozen potential and measure the drift.
 
     Parameters
@@ -448,13 +426,22 @@ def run_drift(model, parts, duration, step=None, outputs=OUTPUTS, threshold=THRE
         Mass factor of a subsampled component (count / chosen).
     quiet : bool
         No progress bar.
+    frame : icgen.frame.Frame, optional
+        The galaxy's frame: the particles are moved into it, where the frozen potential is
+        centred. Default: found from ``parts`` (icgen.frame.galaxy_frame).
 
     Returns
     -------
     DriftResult
     """
     t_start = time.perf_counter()
-    layout, pos, vel, skipped = _layout(model, parts, weights or {})
+    for name, p in parts.items():
+        for key in ("position", "velocity", "mass"):
+            check_values(np.asarray(p[key], float), key, f"particles[{name!r}][{key!r}]")
+    if frame is None:
+        frame = galaxy_frame({n: p for n, p in parts.items() if p["mass"].size},
+                             model.spec.seed)
+    layout, pos, vel, skipped = _layout(model, frame.to_galaxy(parts), weights or {})
     interval = duration / outputs / TIME_UNIT_GYR
     m, step_info = choose_steps(model, pos, vel, interval,
                                 None if step is None else step / TIME_UNIT_GYR)
@@ -478,7 +465,8 @@ def run_drift(model, parts, duration, step=None, outputs=OUTPUTS, threshold=THRE
         model=model.name, source=str(source),
         settings={"duration_gyr": duration, "outputs": outputs, "step_gyr": step,
                   "threshold": threshold, "sigma_limit": SIGMA_LIMIT,
-                  "particles": int(len(orbits)), "not_integrated": skipped},
+                  "particles": int(len(orbits)), "not_integrated": skipped,
+                  "frame": frame.as_dict()},
         components=comps, times_gyr=times,
         quantities=_drift_rows(layout, records, threshold), energy=energy, lz=lz,
         steps=step_info,
@@ -587,54 +575,6 @@ def parse_number(value, key, default):
     return x
 
 
-#: Mass fraction (around the density centre) whose mean velocity is taken as the centre's.
-CENTRE_MASS_FRACTION = 0.05
-
-
-def density_centre(parts):
-    """Position and velocity of the density centre: the shrinking sphere (Power et al.
-    2003) and the mean velocity of the CENTRE_MASS_FRACTION of the mass nearest to it.
-
-    A snapshot has its centre of mass at the origin; that centre is set by the far halo
-    particles and misses the dense centre by ~ r_rms/sqrt(N) (0.1-0.3 kpc at 1e6): in a
-    frozen potential centred at 0 the disk would then slosh.
-    """
-    from .measure import shrinking_sphere_centre
-    live = [p for p in parts.values() if p["mass"].size]
-    pos = np.concatenate([p["position"] for p in live])
-    vel = np.concatenate([p["velocity"] for p in live])
-    m = np.concatenate([p["mass"] for p in live])
-    c = shrinking_sphere_centre(pos, m)
-    d2 = np.einsum("ij,ij->i", pos - c, pos - c)
-    order = np.argsort(d2)
-    inner = order[:np.searchsorted(np.cumsum(m[order]), CENTRE_MASS_FRACTION * m.sum()) + 1]
-    return c, m[inner] @ vel[inner] / m[inner].sum()
-
-
-def recentre(parts):
-    """Move particles so the density centre is at rest at the origin, where the frozen
-    potential is centred. Returns (new parts, {"position_kpc", "velocity_kms"})."""
-    c, v = density_centre(parts)
-    out = {name: {**p, "position": p["position"] - c, "velocity": p["velocity"] - v}
-           for name, p in parts.items()}
-    return out, {"position_kpc": c.tolist(), "velocity_kms": v.tolist()}
-
-
-#: At most this many particles (a seeded random subset) locate the density centre of a
-#: snapshot; with the integrated sample this bounds what ``icgen drift`` holds in memory.
-CENTRE_PARTICLES = 2_000_000
-
-
-def read_rows(snap, rows):
-    """Chosen rows of an open snapshot (icgen.snapshot_read.SnapshotFile.read_rows) in
-    internal units: kpc, km/s, Msun."""
-    from .check import internal_scales
-    scale = internal_scales(snap.units, snap.path)
-    keys = ("position", "velocity", "mass")
-    return {n: {k: np.asarray(c[k], np.float64) / scale[k] for k in keys}
-            for n, c in snap.read_rows(rows).items()}
-
-
 def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OUTPUTS,
                    threshold=THRESHOLD, quiet=True):
     """Run the drift test on an icgen snapshot (the model is rebuilt from its config).
@@ -661,26 +601,28 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
     with open_snapshot(path) as snap:
         seed = int(snap.attrs["seed"]) if seed is None else seed
         counts = {n: c.count for n, c in snap.components.items()}
-        rows, _ = choose_rows(counts, CENTRE_PARTICLES, seed)
-        c, v = density_centre(read_rows(snap, rows))
+        frame = snap.frame()
         skip = [n for n, k in snap.components.items() if k.kind in NOT_INTEGRATED]
-        rows, weights = choose_rows({n: k for n, k in counts.items() if n not in skip},
+        rows, weights = subset_rows({n: k for n, k in counts.items() if n not in skip},
                                     sample, seed)
-        chosen = {n: {**p, "position": p["position"] - c, "velocity": p["velocity"] - v}
-                  for n, p in read_rows(snap, rows).items()}
+        keys = ("position", "velocity", "mass")
+        chosen = {n: {k: p[k] for k in keys} for n, p in snap.read_rows_internal(rows).items()}
         spec = snap.spec
     model = GalaxyModel(spec)
-    shift = {"position_kpc": c.tolist(), "velocity_kms": v.tolist()}
     chosen.update({n: {"position": np.zeros((0, 3)), "velocity": np.zeros((0, 3)),
                        "mass": np.zeros(0)} for n in skip})       # listed, not integrated
     parts_total = sum(counts.values())
     t_read = time.perf_counter() - t0
     res = run_drift(model, chosen, duration, step, outputs, float(threshold), weights,
-                    quiet, source=path)
-    res.settings.update(sample=sample, seed=seed, recentred_by=shift,
+                    quiet, source=path, frame=frame)
+    res.settings.update(sample=sample, seed=seed,
                         file_particles=int(parts_total))
     res.timing = {"read + model_s": t_read, **res.timing}
     return res
+
+
+def _vec(v):
+    return "(" + ", ".join(f"{c:+.3g}" for c in v) + ")"
 
 
 def _fmt(x, spec):
@@ -706,6 +648,9 @@ def format_report(res, all_rows=False):
                  f"max {res.lz['max']:.2e}")
     for name, why in s.get("not_integrated", {}).items():
         lines.append(f"not integrated: {name} ({why})")
+    lines.append("measured and integrated about the galaxy's centre, found at "
+                 + _vec(s["frame"]["position_kpc"]) + " kpc and " + _vec(s["frame"]["velocity_kms"])
+                 + " km/s in the file (icgen.frame)")
     lines.append("median position at the start (potential centre at 0): " + "; ".join(
         f"{n} ({', '.join(f'{x:+.3g}' for x in c['centre_offset_kpc'])}) kpc"
         for n, c in res.components.items()))

@@ -61,7 +61,7 @@ class CheckResult:
     n_sigma: float
     particles: dict
     kinds: dict
-    centre: list
+    frame: dict
     settings: dict
     rows: list = field(default_factory=list)
     timing: dict = field(default_factory=dict)
@@ -77,7 +77,7 @@ class CheckResult:
     def to_dict(self):
         return {"model": self.model, "path": self.path, "n_sigma": self.n_sigma,
                 "passed": self.passed, "particles": self.particles, "kinds": self.kinds,
-                "centre": self.centre,
+                "frame": self.frame,
                 "settings": self.settings, "timing": self.timing,
                 "rows": [r.to_dict() for r in self.rows]}
 
@@ -92,17 +92,24 @@ class CheckResult:
         rows = []
         for r in self.rows:
             i, d = r.worst()
+            shown_only = not any(r.tested)
+            if shown_only:      # a row only shown: its largest value
+                i = int(np.argmax(np.abs(np.asarray(r.measured, float))))
             where = "" if i is None else (r.labels[i] if r.labels else f"{r.x[i]:.3g}")
             shown = (lambda v: "" if i is None else f"{v[i]:.4g}")
+            status = "shown" if shown_only else ("pass" if r.passed else "FAIL")
             rows.append([r.quantity, r.component, f"{sum(r.tested)}/{len(r.tested)}",
-                         "-" if i is None else f"{d:+.2f} err", where, shown(r.measured),
-                         shown(r.predicted), r.unit, "pass" if r.passed else "FAIL"])
+                         "-" if shown_only or i is None else f"{d:+.2f} err", where,
+                         shown(r.measured), shown(r.predicted), r.unit, status])
         n_fail = len(self.failed())
         title = (f"icgen check: {self.model}" + (f" ({self.path})" if self.path else "")
                  + f"; tolerance {self.n_sigma:g} standard errors per bin")
         verdict = ("all checks pass" if n_fail == 0
                    else f"{n_fail} of {len(self.rows)} checks FAIL")
-        return format_table(headers, rows, title=title) + "\n" + verdict
+        vec = lambda v: "(" + ", ".join(f"{c:+.3g}" for c in v) + ")"
+        where = (f"measured about the galaxy's centre, found at {vec(self.frame['position_kpc'])}"
+                 f" kpc and {vec(self.frame['velocity_kms'])} km/s in the file (icgen.frame)")
+        return format_table(headers, rows, title=title) + "\n" + where + "\n" + verdict
 
 
 def _json_safe(x):

@@ -67,7 +67,7 @@ def _check_folder(folder, overwrite):
 
 def run(args):
     """Run ``icgen mock``; every check happens before anything is written."""
-    from .observation import OUTPUT_FILES, observe, tracer_particles
+    from .observation import OUTPUT_FILES, observe
     from .project import geometry_from_text, instrument_from_text
     from .tilted_ring import check_geometry_options
 
@@ -81,10 +81,8 @@ def run(args):
     free = tuple(k.strip() for k in args.fit_params.split(",") if k.strip())
     check_geometry_options(args.fit_geometry, free)
     _check_folder(args.output, args.overwrite)
-    particles, kind, model = tracer_particles(args.snapshot, args.tracer)
-    obs = observe({args.tracer: particles}, geometry, instrument, tracer=args.tracer,
-                  model=model, seed=args.seed, fit_geometry=args.fit_geometry, free=free,
-                  expansion=args.expansion)
+    obs = observe(args.snapshot, geometry, instrument, tracer=args.tracer, seed=args.seed,
+                  fit_geometry=args.fit_geometry, free=free, expansion=args.expansion)
     os.makedirs(args.output, exist_ok=True)
     paths = obs.write(args.output, overwrite=args.overwrite)
     note = obs.rings.meta.get("note")
@@ -106,6 +104,11 @@ def report(obs):
              f"cube {grid.nx} x {grid.ny} pixels of {ins.pixel:g} arcsec x {grid.nv} channels "
              f"of {ins.channel:g} km/s; beam {ins.beam:g} arcsec = "
              f"{ins.beam * g.kpc_per_arcsec:.3f} kpc; noise rms {obs.rms:.3g} (cube units)"]
+    if obs.frame is not None:
+        vec = lambda v: "(" + ", ".join(f"{c:+.3g}" for c in v) + ")"
+        f = obs.frame.as_dict()
+        lines.append(f"observed about the galaxy's centre, found at {vec(f['position_kpc'])} "
+                     f"kpc and {vec(f['velocity_kms'])} km/s in the file (icgen.frame)")
     fitted = obs.rings.meta.get("geometry")
     if fitted and obs.rings.meta["fitted"]:
         errs = obs.rings.meta["geometry_err"]

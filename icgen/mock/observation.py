@@ -66,6 +66,7 @@ class MockObservation:
     truth: object
     model_curve: object
     kinds: dict = field(default_factory=dict)
+    frame: object = None
 
     @property
     def cube(self):
@@ -147,7 +148,8 @@ def output_paths(folder, overwrite=False):
 
 
 def tracer_particles(source, tracer, model=None):
-    """The tracer's particles in internal units, its kind, and the model.
+    """The tracer's particles in internal units and in the galaxy's frame, its kind, the
+    model and the frame.
 
     Parameters
     ----------
@@ -159,39 +161,45 @@ def tracer_particles(source, tracer, model=None):
     model : GalaxyModel, optional
         Required for a dict; for a snapshot the model stored in it is used by default.
 
+    The galaxy's frame (icgen.frame: its density centre and that centre's velocity) is
+    found from every component given, as ``check`` and ``drift`` find it; the tracer is
+    observed, and its truth measured, about it.
+
     Returns
     -------
-    (particles dict, kind, model)
+    (particles dict, kind, model, frame)
     """
+    from ..frame import galaxy_frame
     from ..snapshot_read import Snapshot, check_values, read_snapshot
 
     if isinstance(source, (str, os.PathLike)):
         source = read_snapshot(source)          # validated as it is read
     if isinstance(source, Snapshot):
-        comps = source.components
-        _check_tracer(tracer, {n: c["kind"] for n, c in comps.items()})
+        _check_tracer(tracer, {n: c["kind"] for n, c in source.components.items()})
         if model is None:      # built only once the tracer is known to be good
             from ..config import spec_from_toml_text
             from ..model import GalaxyModel
             model = GalaxyModel(spec_from_toml_text(source.config, source=f"{source.path}:config"))
-        scale = {"position": u.Unit(source.units["length"]).to(u.kpc),
-                 "velocity": u.Unit(source.units["velocity"]).to(u.km / u.s),
-                 "mass": u.Unit(source.units["mass"]).to(u.Msun)}
+        comps, frame = source.internal(), source.frame
     elif isinstance(source, dict):
         if model is None:
             raise ModelError("model", None, "a GalaxyModel is needed with particles given as a dict")
-        comps, scale = source, {"position": 1.0, "velocity": 1.0, "mass": 1.0}
         kinds = {n: model.components[n].kind if n in model.components else c.get("kind")
-                 for n, c in comps.items()}
+                 for n, c in source.items()}
         _check_tracer(tracer, kinds)
+        comps = {n: {k: np.asarray(c[k], float) for k in ("position", "velocity", "mass")}
+                 for n, c in source.items()}
+        for name, c in comps.items():     # particles given in memory are checked here too
+            for k, values in c.items():
+                check_values(values, k, f"particles[{name!r}][{k!r}]")
+        frame = galaxy_frame(comps, model.spec.seed)
     else:
         raise ModelError("source", type(source).__name__,
                          "must be a snapshot path, a Snapshot or a dict of particles")
-    kind = model.components[tracer].kind if tracer in model.components else comps[tracer]["kind"]
-    parts = {k: np.asarray(comps[tracer][k], float) * scale[k] for k in scale}
-    for k, values in parts.items():     # particles given in memory are checked here too
-        check_values(values, k, f"particles[{tracer!r}][{k!r}]")
-    return parts, kind, model
+    kind = model.components[tracer].kind if tracer in model.components else source[tracer]["kind"]
+    parts = frame.to_galaxy({tracer: {k: comps[tracer][k]
+                                      for k in ("position", "velocity", "mass")}})[tracer]
+    return parts, kind, model, frame
 
 
 def _check_tracer(tracer, kinds):
@@ -249,7 +257,7 @@ def observe(source, geometry, instrument=None, tracer="disk", model=None, seed=0
     instrument = Instrument() if instrument is None else instrument
     if not isinstance(geometry, Geometry) or not isinstance(instrument, Instrument):
         raise ModelError("geometry", type(geometry).__name__, "must be a Geometry and an Instrument")
-    particles, kind, model = tracer_particles(source, tracer, model)
+    particles, kind, model, frame = tracer_particles(source, tracer, model)
     moments = stellar_moments(model, tracer) if kind == "disk" else None
     sigma = line_widths(particles, kind, model, tracer, instrument)
     east, north, v_los = project_particles(particles["position"], particles["velocity"], geometry)
@@ -271,6 +279,7 @@ def observe(source, geometry, instrument=None, tracer="disk", model=None, seed=0
     truth = truth_table(model, tracer, particles, edges_kpc, instrument.beam * scale, moments)
     r_out = max(edges_kpc[-1], 1e-3)
     curve = rotation_curve(model, np.linspace(r_out / 200, r_out, 200))
+    truth.meta["frame"] = frame.as_dict()
     return MockObservation(tracer, geometry, instrument, int(seed), grid, data, rms, mom0, mom1,
                            rings, slit, truth, curve,
-                           {n: c.kind for n, c in model.components.items()})
+                           {n: c.kind for n, c in model.components.items()}, frame)
