@@ -1,13 +1,13 @@
 """icgen: equilibrium N-body initial conditions for disk galaxies.
 
-Main entry points: :func:`load_model` (model file or dict -> :class:`GalaxyModel`).
+Main entry points: :func:`load_model` (model file or dict -> :class:`MassModel`).
 """
 __version__ = "0.1.0"
 
 
 def __getattr__(name):
     # Lazy imports keep ``import icgen`` light (numba kernels compile on first use).
-    if name in ("load_model", "GalaxyModel"):
+    if name in ("load_model", "MassModel"):
         from . import model
         return getattr(model, name)
     if name == "read_snapshot":
@@ -16,4 +16,4 @@ def __getattr__(name):
     raise AttributeError(f"module 'icgen' has no attribute {name!r}")
 
 
-__all__ = ["load_model", "GalaxyModel", "read_snapshot", "__version__"]
+__all__ = ["load_model", "MassModel", "read_snapshot", "__version__"]

@@ -210,15 +210,15 @@ def _check_options(precision, compress, chunk_size):
 
 
 def _resolve_spec(model, seed):
-    """(spec, GalaxyModel or None) with the seed override applied."""
-    from .model import GalaxyModel
+    """(spec, MassModel or None) with the seed override applied."""
+    from .model import MassModel
 
-    if isinstance(model, GalaxyModel):
+    if isinstance(model, MassModel):
         spec, built = model.spec, model
     elif isinstance(model, ModelSpec):
         spec, built = model, None
     else:
-        raise ModelError("model", model, "must be a ModelSpec or a GalaxyModel")
+        raise ModelError("model", model, "must be a ModelSpec or a MassModel")
     if seed is not None and seed != spec.seed:
         # ModelSpec is frozen; replace() re-runs its validation on the new seed.
         spec, built = dataclasses.replace(spec, seed=seed), None
@@ -231,7 +231,7 @@ def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double
 
     Parameters
     ----------
-    model : icgen.config.ModelSpec or icgen.model.GalaxyModel
+    model : icgen.config.ModelSpec or icgen.model.MassModel
     path : str or PathLike
         Target file; its folder must exist.
     seed : int, optional
@@ -317,9 +317,9 @@ def _speed_warnings(writer):
 
 
 def _galaxy_model(spec):
-    from .model import GalaxyModel
+    from .model import MassModel
 
-    return GalaxyModel(spec)
+    return MassModel(spec)
 
 
 def _stage(name, bars, timing, fn):

@@ -250,7 +250,7 @@ def _targets(args, keys, inputs):
 def cmd_curve(args):
     import numpy as np
     from .diagnostics import curve
-    from .model import GalaxyModel
+    from .model import MassModel
     from .units import parse_quantity
     from . import config
     import astropy.units as u
@@ -258,7 +258,7 @@ def cmd_curve(args):
     targets = _targets(args, ("table", "plot"), [args.model])
     if args.points < 2:
         raise ModelError("--points", args.points, "must be at least 2")
-    model = GalaxyModel(config.load_spec(args.model))
+    model = MassModel(config.load_spec(args.model))
     radii = None
     if args.radii:
         radii = [parse_quantity(s.strip(), "--radii", u.kpc) for s in args.radii.split(",")]
@@ -380,14 +380,14 @@ def is_snapshot_path(path):
 
 
 def _model_or_snapshot(source):
-    """GalaxyModel of a model file (TOML), the default model (None) or a snapshot."""
+    """MassModel of a model file (TOML), the default model (None) or a snapshot."""
     from . import config
-    from .model import GalaxyModel
+    from .model import MassModel
     from .snapshot import load_model_from_snapshot
 
     if source is not None and is_snapshot_path(source):
         return load_model_from_snapshot(source)
-    return GalaxyModel(config.load_spec(source))
+    return MassModel(config.load_spec(source))
 
 
 def cmd_stability(args):

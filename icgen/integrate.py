@@ -12,7 +12,7 @@ of Noether's theorem for the rotational symmetry.
 Particles in a frozen potential do not interact, so each has its own constant step
 (m_i steps per output interval) and its whole orbit over an interval is one loop of a
 numba kernel, with the force of the model evaluated inline (icgen.potential.field: the
-same numbers ``GalaxyPotential.evaluate`` gives). Particles go to worker threads in
+same numbers ``CombinedPotential.evaluate`` gives). Particles go to worker threads in
 chunks, costliest first; the result does not depend on the chunks or the thread count.
 Where the inline force has no answer (off the grid of a model with a gas disk, or any
 point when no field is given) the particle stops half-way through its step, Python
@@ -178,7 +178,7 @@ class Orbits:
     velocity : (N, 3) array, km/s
     evaluate : callable
         ``evaluate(R, z) -> (Phi, F_R, F_z)`` on flat float64 arrays, e.g.
-        ``GalaxyModel.potential.evaluate``; units (km/s)^2 and (km/s)^2/kpc.
+        ``MassModel.potential.evaluate``; units (km/s)^2 and (km/s)^2/kpc.
     steps : (N,) int array or int
         Steps each particle takes per call of :meth:`advance`.
     field : tuple, optional

@@ -1,4 +1,4 @@
-"""GalaxyModel: a validated model spec, its components and their total potential.
+"""MassModel: a validated model spec, its components and their total potential.
 
 This is the notebook-facing entry point::
 
@@ -10,7 +10,7 @@ This is the notebook-facing entry point::
 import numpy as np
 
 from . import config
-from .potential import GalaxyPotential
+from .potential import CombinedPotential
 from .potential.gas_solver import solve_gas
 from .profiles import ExponentialDisk, PointMass, make_spheroid
 
@@ -24,14 +24,14 @@ def build_component(spec, model_spec):
     return make_spheroid(spec, model_spec.cosmology, model_spec.redshift)
 
 
-class GalaxyModel:
+class MassModel:
     """A galaxy model in internal units (kpc, km/s, Msun).
 
     Attributes
     ----------
     spec : config.ModelSpec
     components : dict name -> profile object
-    potential : GalaxyPotential
+    potential : CombinedPotential
     """
 
     def __init__(self, spec):
@@ -44,7 +44,7 @@ class GalaxyModel:
             gases, self.gas_solution = solve_gas(gas_specs, list(built.values()))
             built.update({g.name: g for g in gases})
         self.components = {s.name: built[s.name] for s in spec.components}
-        self.potential = GalaxyPotential(list(self.components.values()))
+        self.potential = CombinedPotential(list(self.components.values()))
 
     @property
     def name(self):
@@ -82,11 +82,11 @@ class GalaxyModel:
 
     def __repr__(self):
         parts = ", ".join(f"{n}:{c.kind}" for n, c in self.components.items())
-        return f"GalaxyModel({self.name!r}; {parts})"
+        return f"MassModel({self.name!r}; {parts})"
 
 
 def load_model(source=None, **overrides):
-    """Load a GalaxyModel from a TOML path (None: built-in default) or a dict.
+    """Load a MassModel from a TOML path (None: built-in default) or a dict.
 
     ``overrides`` replace top-level tables of the model file, e.g.
     ``load_model(components={...})``.
@@ -94,5 +94,5 @@ def load_model(source=None, **overrides):
     if isinstance(source, dict) or overrides:
         base = source if isinstance(source, dict) else config.load_dict(source)
         data = {**base, **overrides}
-        return GalaxyModel(config.spec_from_dict(data))
-    return GalaxyModel(config.load_spec(source))
+        return MassModel(config.spec_from_dict(data))
+    return MassModel(config.load_spec(source))

@@ -642,13 +642,13 @@ def read_snapshot(path, quantity=False):
 
 
 def load_model_from_snapshot(path):
-    """GalaxyModel rebuilt from the model file stored in a snapshot's ``config`` (the
+    """MassModel rebuilt from the model file stored in a snapshot's ``config`` (the
     header is validated first)."""
-    from .model import GalaxyModel
+    from .model import MassModel
 
     with open_snapshot(path) as snap:
         spec = snap.spec
-    return GalaxyModel(spec)
+    return MassModel(spec)
 
 
 def _model_name(config_text):

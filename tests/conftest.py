@@ -17,16 +17,16 @@ def pytest_collection_modifyitems(config, items):
 
 
 def model_from_components(components, **model_keys):
-    """GalaxyModel from component tables written as in a model file (strings with units)."""
-    from icgen.model import GalaxyModel
+    """MassModel from component tables written as in a model file (strings with units)."""
+    from icgen.model import MassModel
     from icgen.config import spec_from_dict
     data = {"model": {"name": "test model", "seed": 1, **model_keys}, "components": components}
-    return GalaxyModel(spec_from_dict(data))
+    return MassModel(spec_from_dict(data))
 
 
 @pytest.fixture(scope="session")
 def default_model():
     """The built-in default model (potential built once per test session)."""
-    from icgen.model import GalaxyModel
+    from icgen.model import MassModel
     from icgen.config import load_spec
-    return GalaxyModel(load_spec(None))
+    return MassModel(load_spec(None))

@@ -22,7 +22,7 @@ import icgen
 from icgen import sampling
 from icgen.cli import main
 from icgen.config import load_spec
-from icgen.model import GalaxyModel
+from icgen.model import MassModel
 from icgen.progress import progress_enabled
 from icgen.snapshot import load_model_from_snapshot, read_snapshot
 
@@ -99,7 +99,7 @@ def sampled(model_file):
     """sample() of the same model: all particles in memory, centre of mass removed;
     and the removed offset (position kpc, velocity km/s)."""
     report = sampling.SamplingReport()
-    parts = sampling.sample(GalaxyModel(load_spec(model_file)), report=report)
+    parts = sampling.sample(MassModel(load_spec(model_file)), report=report)
     return parts, report.center_of_mass()
 
 
@@ -154,7 +154,7 @@ def test_mirror_key_pairs_particles_and_keeps_the_dense_centre_at_the_origin(
     # centre of mass is at the origin by construction (up to summation round-off) and
     # the centring pass moves nothing; without it the dense centre ends up off the
     # origin by ~ r_rms / sqrt(N) (common practice in N-body set-ups: symmetric pairs).
-    from icgen.diagnostics.measure import shrinking_sphere_centre
+    from icgen.frame import shrinking_sphere_centre
     out = workdir / "mirrored.h5"
     assert build(_with_model_keys(workdir, "mirrored.toml", "mirror = true\n"), out) == 0
     snap = read_snapshot(out)
@@ -175,7 +175,7 @@ def test_quiet_start_key_is_the_samplers_quiet_start(workdir, model_file):
     out = workdir / "quiet.h5"
     assert build(_with_model_keys(workdir, "quiet.toml", "quiet_start = true\n"), out) == 0
     snap = read_snapshot(out)
-    parts = sampling.sample(GalaxyModel(load_spec(model_file)), quiet_start=True)
+    parts = sampling.sample(MassModel(load_spec(model_file)), quiet_start=True)
     for name in ("halo", "disk", "bulge"):
         np.testing.assert_allclose(snap.components[name]["position"],
                                    parts[name]["position"], rtol=0, atol=1e-12)
@@ -240,7 +240,7 @@ def test_units_total_masses_and_G(workdir, reference, precision, rtol):
     out = workdir / f"pc_{precision}.h5"
     assert build(model_file, out, "--precision", precision) == 0
     snap = read_snapshot(out, quantity=True)
-    model = GalaxyModel(load_spec(model_file))
+    model = MassModel(load_spec(model_file))
     with h5py.File(out, "r") as f:
         for name, comp in model.components.items():
             total = snap.components[name]["mass"].sum(dtype=np.float64).to_value(u.Msun)
@@ -309,7 +309,7 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, monkeypatch,
     model = write_model(tmp_path)
     monkeypatch.chdir(tmp_path)
     # checks come before any work: building a model here would be a failure
-    monkeypatch.setattr("icgen.model.GalaxyModel.__init__", lambda *a: pytest.fail("built"))
+    monkeypatch.setattr("icgen.model.MassModel.__init__", lambda *a: pytest.fail("built"))
     assert main(["build", model, *argv_tail]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and err.startswith(f"icgen: error: {key}")
@@ -436,7 +436,7 @@ def test_bar_unstable_disk_is_near_the_eln_threshold():
     # below ~1.1 means a bar forms. The model is meant to sit just below it.
     from icgen.diagnostics.curve import summarize
     from icgen.units import G
-    model = GalaxyModel(load_spec(REPO / "configs" / "bar_unstable_disk.toml"))
+    model = MassModel(load_spec(REPO / "configs" / "bar_unstable_disk.toml"))
     disk = model.spec.component("disk")
     s = summarize(model, r_search=200.0)
     eps = s.v_max / np.sqrt(G * disk.mass / disk.scale_length)
@@ -448,7 +448,7 @@ def test_lsb_disk_is_halo_dominated():
     # low-surface-brightness disks: the halo dominates v_c even at 2.2 R_d (common
     # practice in rotation-curve decomposition); here v_disk / v_total < 0.5 there
     from icgen.diagnostics.curve import summarize
-    model = GalaxyModel(load_spec(REPO / "configs" / "lsb_disk.toml"))
+    model = MassModel(load_spec(REPO / "configs" / "lsb_disk.toml"))
     assert summarize(model).disk_fraction_22 < 0.5
 
 

@@ -32,8 +32,8 @@ def test_curve_enclosed_mass_matches_keplerian_speed(capsys):
     # At a radius far beyond all mass the printed enclosed mass is the total and
     # v^2 r / G equals it (Newton's shell theorem); checked through the library numbers.
     from icgen.diagnostics.curve import summarize
-    from icgen.model import GalaxyModel
-    m = GalaxyModel(load_spec(None))
+    from icgen.model import MassModel
+    m = MassModel(load_spec(None))
     r_far = 3 * max(c.extent for c in m.components.values())
     s = summarize(m, radii=[r_far])
     total = sum(v[0] for v in s.enclosed.values())

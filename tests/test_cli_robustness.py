@@ -71,7 +71,7 @@ def one_line_error(capsys, *words):
 
 def no_work(monkeypatch):
     """Fail the test if a model is built: refusals must come before any work."""
-    monkeypatch.setattr("icgen.model.GalaxyModel.__init__", lambda *a: pytest.fail("built"))
+    monkeypatch.setattr("icgen.model.MassModel.__init__", lambda *a: pytest.fail("built"))
 
 
 @pytest.fixture(scope="module")

@@ -1,7 +1,6 @@
 """The model's centre is the origin of every file, and every command that reads a snapshot
 measures about one frame: the galaxy's centre (icgen.frame), even when the galaxy is
 displaced and moving."""
-import os
 import warnings
 
 import h5py
@@ -15,7 +14,7 @@ from icgen.build import build_snapshot
 from icgen.cli import main
 from icgen.config import spec_from_dict
 from icgen.diagnostics import check
-from icgen.frame import MAX_PARTICLES, find_frame, galaxy_frame
+from icgen.frame import find_frame, galaxy_frame
 from icgen.mock import Geometry, Instrument, observe
 from icgen.snapshot_read import open_snapshot
 

@@ -8,7 +8,7 @@ from scipy import integrate, stats
 from conftest import model_from_components
 from icgen.config import load_spec
 from icgen.errors import ModelError
-from icgen.model import GalaxyModel
+from icgen.model import MassModel
 from icgen.sampling.gas import GasSampler, gas_rotation
 from icgen.units import G
 from reference.ring_quadrature import ring_potential_forces
@@ -18,7 +18,7 @@ CONFIG = "configs/gas_rich_spiral.toml"
 
 @pytest.fixture(scope="module")
 def gas_model():
-    return GalaxyModel(load_spec(CONFIG))
+    return MassModel(load_spec(CONFIG))
 
 
 def _half_height(gas, R):
@@ -178,7 +178,7 @@ def test_gas_disk_around_a_black_hole(tmp_path, gas_model):
     data["components"]["bh"] = {"kind": "point_mass", "mass": "4e7 Msun"}
     for name, n in (("halo", 6_000), ("stars", 3_000), ("gas", 3_000)):
         data["components"][name]["particles"] = n
-    model = GalaxyModel(spec_from_dict(data))
+    model = MassModel(spec_from_dict(data))
     gas = model.components["gas"]
     worst = 0.0
     for R in (0.1, 0.3, 1.0, 5.0):

@@ -6,7 +6,7 @@ from scipy import integrate
 from scipy.special import i0, i1, k0, k1
 
 from conftest import model_from_components
-from icgen.potential import GalaxyPotential
+from icgen.potential import CombinedPotential
 from icgen.units import G
 from reference.ring_quadrature import ring_potential_forces
 
@@ -88,7 +88,7 @@ def test_more_harmonics_reduce_the_error():
     # Ordering (STYLE): l_max = 8 must be worse than the default against ring quadrature.
     m = disk_model(0.1 * R_D)
     pts = _points(0.3, [0.5, 2.0], [1.0, 2.0])
-    coarse = GalaxyPotential(list(m.components.values()), lmax=8)
+    coarse = CombinedPotential(list(m.components.values()), lmax=8)
     err_fine = _compare(m, pts)
     m.potential = coarse
     err_coarse = _compare(m, pts)

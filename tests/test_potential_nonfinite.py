@@ -3,7 +3,7 @@
 The grid and multipole kernels turn a coordinate into a table index with int(); int(NaN)
 in compiled code is any integer, so a NaN point used to read far outside the tables (a
 segmentation fault). The rule tested here (IEEE 754: an invalid operation gives NaN, and
-a computation on NaN stays NaN): GalaxyPotential.evaluate returns NaN in Phi, F_R and
+a computation on NaN stays NaN): CombinedPotential.evaluate returns NaN in Phi, F_R and
 F_z for any point with a NaN or infinite coordinate, and the other points of the same
 call get exactly the bits they get alone.
 """

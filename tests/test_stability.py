@@ -220,9 +220,9 @@ def test_gas_q_and_two_component_criterion_by_hand():
 
 def test_stability_report_of_gas_rich_model():
     from icgen.diagnostics.stability import analyse
-    from icgen.model import GalaxyModel
+    from icgen.model import MassModel
     from icgen.config import load_spec
-    rep = analyse(GalaxyModel(load_spec("configs/gas_rich_spiral.toml")))
+    rep = analyse(MassModel(load_spec("configs/gas_rich_spiral.toml")))
     (g,) = rep.gas
     # the combined disk is less stable than either component alone
     assert g.q_eff_min < g.q_min and g.q_eff_min < rep.disks[0].q_min

@@ -468,7 +468,7 @@ def check_particles(model, parts, n_sigma=N_SIGMA, softening=None, azimuths=AZIM
 
     Parameters
     ----------
-    model : GalaxyModel
+    model : MassModel
     parts : dict
         name -> {"position" (N, 3) kpc, "velocity" (N, 3) km/s, "mass" (N,) Msun, and for
         gas "internal_energy" (N,) (km/s)^2}, one entry per model component (e.g.
@@ -525,10 +525,10 @@ def _timed(timing, label, fn):
 
 
 def read_particles(path):
-    """(GalaxyModel, parts, stored analytic curve) of a snapshot, in internal units, as
+    """(MassModel, parts, stored analytic curve) of a snapshot, in internal units, as
     stored (check_particles finds the galaxy's frame); the file is validated as it is read
     (icgen.snapshot_read)."""
-    from ..model import GalaxyModel
+    from ..model import MassModel
     from ..snapshot_read import open_snapshot
     with open_snapshot(path) as snap:
         parts = {name: {k: snap.read_internal(name, k) for k in snap.scales if k in c.keys}
@@ -537,7 +537,7 @@ def read_particles(path):
         curve = {key: v / scale["position" if key == "radius" else "velocity"]
                  for key, v in snap.read_curve().items()}
         spec = snap.spec
-    return GalaxyModel(spec), parts, curve
+    return MassModel(spec), parts, curve
 
 
 def _stored_curve_row(model, curve):

@@ -254,7 +254,7 @@ def choose_steps(model, pos, vel, interval, step=None):
 
     Parameters
     ----------
-    model : GalaxyModel
+    model : MassModel
     pos, vel : (N, 3) arrays, kpc and km/s
     interval : float
         Output interval, internal time units.
@@ -410,7 +410,7 @@ def run_drift(model, parts, duration, step=None, outputs=OUTPUTS, threshold=THRE
 
     Parameters
     ----------
-    model : GalaxyModel
+    model : MassModel
     parts : dict
         name -> {"position" (n, 3) kpc, "velocity" (n, 3) km/s, "mass" (n,) Msun}, e.g.
         from :func:`icgen.sampling.sample`.
@@ -595,7 +595,7 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
     seed = parse_whole(seed, "--seed", 0)
     outputs = parse_whole(outputs, "--outputs", 1, OUTPUTS)
     threshold = parse_number(threshold, "--threshold", THRESHOLD)
-    from ..model import GalaxyModel
+    from ..model import MassModel
     from ..snapshot_read import open_snapshot
     t0 = time.perf_counter()
     with open_snapshot(path) as snap:
@@ -608,7 +608,7 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
         keys = ("position", "velocity", "mass")
         chosen = {n: {k: p[k] for k in keys} for n, p in snap.read_rows_internal(rows).items()}
         spec = snap.spec
-    model = GalaxyModel(spec)
+    model = MassModel(spec)
     chosen.update({n: {"position": np.zeros((0, 3)), "velocity": np.zeros((0, 3)),
                        "mass": np.zeros(0)} for n in skip})       # listed, not integrated
     parts_total = sum(counts.values())

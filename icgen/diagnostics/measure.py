@@ -15,7 +15,6 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..frame import shrinking_sphere_centre  # noqa: F401  (re-exported)
 from ..units import G
 
 

@@ -289,7 +289,7 @@ def particle_mass_ratios(plans):
 
 
 def analyse(model, plans=None):
-    """StabilityReport of ``model`` (a GalaxyModel) with the particle numbers of
+    """StabilityReport of ``model`` (a MassModel) with the particle numbers of
     ``plans`` (default: sampling.plan(model), the model file's counts)."""
     from .. import sampling
     from . import curve
@@ -444,18 +444,18 @@ SNAPSHOT_SUFFIXES = (".h5", ".hdf5", ".hdf")
 
 
 def load_source(source):
-    """GalaxyModel from a model file (TOML), the default model (None) or an icgen snapshot
+    """MassModel from a model file (TOML), the default model (None) or an icgen snapshot
     (HDF5: the model stored in its ``config``)."""
     import os
 
     import h5py
 
     from ..config import load_spec
-    from ..model import GalaxyModel
+    from ..model import MassModel
     # an HDF5 file, or a file named as one (so that a damaged snapshot gets the
     # snapshot reader's error, not the TOML parser's)
     if source is not None and os.path.isfile(source) and (
             h5py.is_hdf5(source) or str(source).lower().endswith(SNAPSHOT_SUFFIXES)):
         from ..snapshot_read import load_model_from_snapshot
         return load_model_from_snapshot(source)
-    return GalaxyModel(load_spec(source))
+    return MassModel(load_spec(source))

@@ -158,7 +158,7 @@ def tracer_particles(source, tracer, model=None):
         dict name -> {"position", "velocity", "mass"} in internal units (as
         :func:`icgen.sampling.sample` returns).
     tracer : str
-    model : GalaxyModel, optional
+    model : MassModel, optional
         Required for a dict; for a snapshot the model stored in it is used by default.
 
     The galaxy's frame (icgen.frame: its density centre and that centre's velocity) is
@@ -178,12 +178,12 @@ def tracer_particles(source, tracer, model=None):
         _check_tracer(tracer, {n: c["kind"] for n, c in source.components.items()})
         if model is None:      # built only once the tracer is known to be good
             from ..config import spec_from_toml_text
-            from ..model import GalaxyModel
-            model = GalaxyModel(spec_from_toml_text(source.config, source=f"{source.path}:config"))
+            from ..model import MassModel
+            model = MassModel(spec_from_toml_text(source.config, source=f"{source.path}:config"))
         comps, frame = source.internal(), source.frame
     elif isinstance(source, dict):
         if model is None:
-            raise ModelError("model", None, "a GalaxyModel is needed with particles given as a dict")
+            raise ModelError("model", None, "a MassModel is needed with particles given as a dict")
         kinds = {n: model.components[n].kind if n in model.components else c.get("kind")
                  for n, c in source.items()}
         _check_tracer(tracer, kinds)
@@ -241,7 +241,7 @@ def observe(source, geometry, instrument=None, tracer="disk", model=None, seed=0
         Default ``Instrument()`` (12 arcsec beam, 4 arcsec pixels, 5 km/s channels, no noise).
     tracer : str
         Component observed; its kind must be "disk" or "gas_disk".
-    model : GalaxyModel, optional
+    model : MassModel, optional
         The truth; default the model stored in the snapshot.
     seed : int
         Seed of the noise (numpy.random.default_rng).

@@ -66,7 +66,7 @@ def truth_table(model, tracer, particles, edges, beam_kpc, moments=None):
 
     Parameters
     ----------
-    model : GalaxyModel
+    model : MassModel
     tracer : str
         Name of the observed component.
     particles : dict

@@ -1,4 +1,4 @@
 """Gravitational potential of a galaxy model: analytic pieces plus a multipole expansion."""
-from .total import GalaxyPotential
+from .total import CombinedPotential
 
-__all__ = ["GalaxyPotential"]
+__all__ = ["CombinedPotential"]

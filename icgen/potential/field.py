@@ -1,7 +1,7 @@
-"""The total force of a GalaxyPotential as plain arrays, for numba code that needs it one
+"""The total force of a CombinedPotential as plain arrays, for numba code that needs it one
 point at a time (the orbit integrator).
 
-:func:`force_field` packs the pieces the fast path of ``GalaxyPotential.evaluate`` sums:
+:func:`force_field` packs the pieces the fast path of ``CombinedPotential.evaluate`` sums:
 the grid of disks and tabulated spheroids (potential/grid.py), closed-form spheres, and for
 points off the grid the exact pieces (Dehnen & Binney 1998 thin layers of stellar disks
 plus the multipole table). :func:`force` sums them with the same per-point
@@ -44,7 +44,7 @@ def _pack(usable, grid, table, spheres, layers, inline):
 
 
 def force_field(potential):
-    """The total force of ``potential`` (a GalaxyPotential) as a flat tuple for
+    """The total force of ``potential`` (a CombinedPotential) as a flat tuple for
     :func:`force`. Units: kpc, (km/s)^2/kpc."""
     terms = potential.sphere_terms()
     spheres = (np.array([t[0] for t in terms], np.int64), np.array([t[1] for t in terms]),
@@ -61,7 +61,7 @@ NO_FIELD = _pack(False, None, None, (np.zeros(0, np.int64), np.zeros(0), np.zero
 @njit(cache=True, error_model="numpy", inline="always")
 def force(R, z, p, c_force, codes, gms, scales, layers, rn, pt, dpt, d2pt):
     """(found, F_R, F_z) of a field at one point, R >= 0 and z in kpc; ``found`` is False
-    (forces 0) where only ``GalaxyPotential.evaluate`` can give the answer. The sums run
+    (forces 0) where only ``CombinedPotential.evaluate`` can give the answer. The sums run
     in the order ``evaluate`` uses, for equal bits."""
     if p[USABLE] == 0.0:
         return False, 0.0, 0.0

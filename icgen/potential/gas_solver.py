@@ -20,7 +20,7 @@ from ..errors import ModelError
 from ..profiles.disk import log_cosh
 from ..profiles.gas import GasDisk
 from ..units import G
-from .total import GalaxyPotential
+from .total import CombinedPotential
 
 RELAXATION = 1.0   # weight of the new q per step (0.6 converged fastest among 0.4-1, measured)
 # Largest sech^2-equivalent scale height of the gas at R = R_d, in scale lengths: a thin
@@ -96,7 +96,7 @@ def solve_gas(gas_specs, others):
 
     Returns (list of GasDisk, GasSolution). Raises ModelError if it does not converge.
     """
-    fixed = GalaxyPotential(others, grid=False) if others else None
+    fixed = CombinedPotential(others, grid=False) if others else None
     fixed_fn = [] if fixed is None else [lambda R, z: fixed.evaluate(R, z, exact=True)[0]]
     gases = []
     for spec in gas_specs:
@@ -116,7 +116,7 @@ def solve_gas(gas_specs, others):
         gases.append(gas)
     record = GasSolution()
     for it in range(1, defaults.GAS_MAX_ITERATIONS + 1):
-        own = GalaxyPotential(gases, grid=False)
+        own = CombinedPotential(gases, grid=False)
         fns = fixed_fn + [lambda R, z: own.evaluate(R, z, exact=True)[0]]
         change = 0.0
         for gas in gases:

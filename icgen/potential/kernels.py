@@ -3,7 +3,7 @@
 All take float64 arrays R, z (kpc) and accumulate phi ((km/s)^2) and the force per unit mass
 F_R, F_z ((km/s)^2/kpc, F = -grad Phi) in place. They never raise, print or touch units,
 and never index a table with a NaN: a non-finite point gives NaN or inf, never a read out
-of bounds (GalaxyPotential.evaluate then returns NaN there).
+of bounds (CombinedPotential.evaluate then returns NaN there).
 """
 import math
 

@@ -18,7 +18,7 @@ from .multipole import radial_grid, solve
 DISK_KINDS = ("disk", "gas_disk")
 
 
-class GalaxyPotential:
+class CombinedPotential:
     """Potential of a list of components (profiles.* objects).
 
     Parameters

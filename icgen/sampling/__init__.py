@@ -1,4 +1,4 @@
-"""Particle realisation of a GalaxyModel: positions and equilibrium velocities.
+"""Particle realisation of a MassModel: positions and equilibrium velocities.
 
 Typical use::
 

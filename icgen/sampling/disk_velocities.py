@@ -101,7 +101,7 @@ class DiskVelocities:
     disk : profiles.disk.ExponentialDisk
     spec : DiskSpec
         Reads toomre_q / toomre_q_radius, toomre_q_min or sigma_ratio.
-    potential : GalaxyPotential
+    potential : CombinedPotential
         The total potential.
     """
 

@@ -243,7 +243,7 @@ def iter_chunks(model, chunk_size=262144, quiet_start=None, mirror=None, report=
 
     Parameters
     ----------
-    model : GalaxyModel
+    model : MassModel
     chunk_size : int
         Particles per chunk (the last chunk of a component may be shorter). The particles
         do not depend on it.

@@ -36,12 +36,12 @@ def first_compile_seconds():
 
 def main():
     import icgen
-    from icgen.model import GalaxyModel
+    from icgen.model import MassModel
     from icgen.config import load_spec
     spec = load_spec(None)
-    GalaxyModel(spec)                                  # warm numba caches
-    t_build = best_of(lambda: GalaxyModel(spec))
-    model = GalaxyModel(spec)
+    MassModel(spec)                                  # warm numba caches
+    t_build = best_of(lambda: MassModel(spec))
+    model = MassModel(spec)
     rng = np.random.default_rng(0)
     n = 1_000_000
     R = rng.uniform(0, 40, n)

@@ -15,16 +15,16 @@ import numpy as np
 
 
 def model_with(total, spec_dict):
-    """GalaxyModel of the default galaxy with ``total`` particles in the 6:3:1 split."""
+    """MassModel of the default galaxy with ``total`` particles in the 6:3:1 split."""
     from icgen.config import spec_from_dict
-    from icgen.model import GalaxyModel
+    from icgen.model import MassModel
     data = {k: (dict(v) if isinstance(v, dict) else v) for k, v in spec_dict.items()}
     comps = {name: dict(c) for name, c in data["components"].items()}
     share = {"halo": 0.6, "disk": 0.3, "bulge": 0.1}
     for name, c in comps.items():
         c["particles"] = int(share[name] * total)
     data["components"] = comps
-    return GalaxyModel(spec_from_dict(data))
+    return MassModel(spec_from_dict(data))
 
 
 def time_sampling(model):
