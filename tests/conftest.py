@@ -1,4 +1,5 @@
 """Shared pytest configuration: the ``--slow`` tier."""
+import numpy as np
 import pytest
 
 
@@ -30,3 +31,16 @@ def default_model():
     from icgen.model import MassModel
     from icgen.config import load_spec
     return MassModel(load_spec(None))
+
+
+def uncut_mass(profile, scale=1.0, mass=1e10, outer=5000.0):
+    """M of the uncut law whose density a cut Hernquist or Plummer sphere of total ``mass``
+    (Msun, cut at ``outer`` kpc, scale ``scale`` kpc) has inside its outer radius:
+    2 pi rho0 a^3 (Hernquist 1990, eq. 2) or 4 pi rho0 b^3 / 3 (Plummer 1911). With the far
+    cut at 5000 a, M = mass (1 + 1.6e-4) for Hernquist."""
+    from icgen.config import SpheroidSpec
+    from icgen.profiles.spheroid import finite_law
+    spec = SpheroidSpec(name="b", kind="bulge", profile=profile, mass=mass, scale_radius=scale,
+                        outer_radius=outer)
+    factor = {"hernquist": 2 * np.pi, "plummer": 4 * np.pi / 3}[profile]
+    return factor * finite_law(spec).rho0 * scale**3

@@ -4,29 +4,16 @@ import pytest
 from scipy import stats
 from scipy.special import spence
 
-from conftest import model_from_components
+from conftest import model_from_components, uncut_mass
 from icgen import sampling
 from icgen.sampling import realize
 from icgen.sampling.spheroid_velocities import jeans_sigma_r2
 from icgen.units import G
 
 # A far outer cut: the uncut Hernquist law holds all but 4e-4 of its mass inside 5000 a
-# (Hernquist 1990, eq. 3), below every tolerance here; the default cut (96.6 a) is tested in
+# (Hernquist 1990, eq. 3), below every tolerance here; the default cut (72.4 a) is tested in
 # test_potential_spheroids.py.
 A = 1.0
-
-
-def uncut_mass(profile):
-    """M of the uncut law whose density the cut model has inside r_t: 2 pi rho0 a^3
-    (Hernquist 1990, eq. 2) or 4 pi rho0 b^3 / 3 (Plummer 1911). The model's mass, 1e10
-    Msun, includes the cut, so M = 1e10 (1 + 1.6e-4) for Hernquist with this far cut."""
-    from icgen.config import SpheroidSpec
-    from icgen.profiles.spheroid import finite_law
-    spec = SpheroidSpec(name="b", kind="bulge", profile=profile, mass=1e10, scale_radius=A,
-                        outer_radius=5000.0)
-    return {"hernquist": 2 * np.pi, "plummer": 4 * np.pi / 3}[profile] * finite_law(spec).rho0 * A**3
-
-
 M = uncut_mass("hernquist")
 HERNQUIST = {"kind": "bulge", "profile": "hernquist", "mass": "1e10 Msun",
              "scale_radius": "1 kpc", "outer_radius": "5000 kpc", "particles": 200_000}
