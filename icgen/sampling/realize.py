@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..config import model_warnings
+from .. import defaults
 from ..errors import ModelError, MISSING
 from . import seeds
 from .disk_velocities import DiskVelocities
@@ -238,7 +239,8 @@ def _check_options(chunk_size=1):
         raise ModelError("chunk_size", chunk_size, "must be a whole number >= 1")
 
 
-def iter_chunks(model, chunk_size=262144, quiet_start=None, mirror=None, report=None):
+def iter_chunks(model, chunk_size=defaults.CHUNK_PARTICLES, quiet_start=None, mirror=None,
+                report=None):
     """Yield ParticleChunk objects component by component, in model-file order.
 
     Parameters
