@@ -104,7 +104,7 @@ def interpolate(R, z, s, h, x_max, core, c_phi, c_force, phi, f_r, f_z, outside)
 class PotentialGrid:
     """Interpolation grid of an exact evaluator ``exact(R, z) -> (Phi, F_R, F_z)``."""
 
-    def __init__(self, exact, s, r_max, core_cells=6, per_unit=defaults.GRID_NODES_PER_ASINH_UNIT):
+    def __init__(self, exact, s, r_max, core_cells=16, per_unit=defaults.GRID_NODES_PER_ASINH_UNIT):
         self.s = float(s)
         x_max = math.asinh(r_max / s)
         half = int(math.ceil(x_max * per_unit))
