@@ -282,9 +282,10 @@ def _vertical_row(disk, name, R, z, annuli, n_sigma):
     for a gas disk the law is the hydrostatic column at the annulus."""
     from ..profiles.disk import SECH2
     f = np.asarray(VERTICAL_FRACTIONS)
-    with np.errstate(divide="ignore"):
-        z_edges = (disk.z_d * np.arctanh(f) if disk.vertical == SECH2
-                   else -disk.z_d * np.log1p(-f))
+    if disk.kind != "gas_disk":
+        with np.errstate(divide="ignore"):
+            z_edges = (disk.z_d * np.arctanh(f) if disk.vertical == SECH2
+                       else -disk.z_d * np.log1p(-f))
     az = np.abs(z)
     x, meas, pred, err, tested, labels = [], [], [], [], [], []
     for lo, hi in zip(annuli[:-1], annuli[1:]):
