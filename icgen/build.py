@@ -23,7 +23,6 @@ import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 
-import astropy.units as u
 import numpy as np
 
 from . import defaults, sampling
@@ -369,13 +368,8 @@ def _stream(model, writer, plans, chunk_size, bars, timing, report, guard):
 
 def _finish(model, writer, plans, bars, timing, offset, guard):
     """Velocity pass (net momentum to zero), analytic rotation curve and attributes."""
-    from .diagnostics import curve
-
     t0 = time.perf_counter()
-    table = curve.rotation_curve(model, curve.default_radii(model))
-    radius = table["radius"].to_value(u.kpc)
-    speeds = {name: table[f"v_circ_{name}"].to_value(u.km / u.s)
-              for name in ["total"] + [p.name for p in plans]}
+    radius, speeds = model.rotation_curve()
     with stage_bar("momentum", sum(p.count for p in plans), bars, unit=" particles") as bar:
         def progress(n):
             guard.check()

@@ -76,3 +76,22 @@ def test_curve_on_bad_model_file_exit_2(tmp_path, capsys):
     assert main(["curve", str(bad)]) == 2
     err = capsys.readouterr().err
     assert "components.disk.mass" in err
+
+
+def test_model_curve_of_a_point_mass_is_keplerian():
+    # v_c = sqrt(G M / R) around a point mass (Kepler); with no length scale the radii run
+    # to POINT_MASS_RADIUS in CURVE_POINTS even steps. The QTable of `icgen curve` holds
+    # the model's numbers unchanged.
+    from conftest import model_from_components
+    from icgen.diagnostics.curve import rotation_curve
+    from icgen.model import CURVE_POINTS, POINT_MASS_RADIUS
+    m = model_from_components({"bh": {"kind": "point_mass", "mass": "1e9 Msun"}})
+    R, speeds = m.rotation_curve()
+    np.testing.assert_array_equal(R, np.linspace(POINT_MASS_RADIUS / CURVE_POINTS,
+                                                 POINT_MASS_RADIUS, CURVE_POINTS))
+    # closed form -G M / r evaluated in float64: a few ulp
+    np.testing.assert_allclose(speeds["total"], np.sqrt(G * 1e9 / R), rtol=1e-12)
+    np.testing.assert_array_equal(speeds["bh"], speeds["total"])
+    table = rotation_curve(m)
+    assert table["radius"].value.tobytes() == R.tobytes()
+    assert table["v_circ_bh"].value.tobytes() == speeds["bh"].tobytes()

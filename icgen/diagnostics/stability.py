@@ -453,6 +453,6 @@ def load_source(source):
     # snapshot reader's error, not the TOML parser's)
     if source is not None and os.path.isfile(source) and (
             h5py.is_hdf5(source) or str(source).lower().endswith(SNAPSHOT_SUFFIXES)):
-        from ..snapshot_read import load_model_from_snapshot
+        from ..snapshot import load_model_from_snapshot
         return load_model_from_snapshot(source)
     return MassModel(load_spec(source))
