@@ -54,3 +54,38 @@ class GasSampler:
         pos = np.column_stack([R * c, R * s, z])
         vel = np.column_stack([-v_phi * s, v_phi * c, np.zeros_like(R)])
         return pos, vel, clamped
+
+
+# Relative step of the centred difference of ln rho_g in ln R (error ~ step^2 times the
+# third derivative of the layer's spline; round-off ~ 1e-16/step).
+LOG_STEP = 1e-4
+
+
+class GasKinematics:
+    """Mean rotation and internal energy of an isothermal gas disk, computed independently
+    of its sampler: v_phi^2 = R dPhi/dR + c_s^2 dln rho/dln R (Binney & Tremaine 2008,
+    eq. 4.222 with the pressure P = c_s^2 rho), the log slope by centred differences of the
+    layer's density (the sampler uses the spline's analytic derivative); u = c_s^2/(gamma
+    - 1). Units: kpc, km/s."""
+
+    def __init__(self, gas, potential):
+        self.gas, self.potential = gas, potential
+        self.internal_energy = gas.cs**2 / (gas.gamma - 1)
+
+    def mean_vphi(self, R, z):
+        """Mean v_phi (km/s) at (R, z) kpc; 0 where the pressure term exceeds v_c^2."""
+        R, z = np.asarray(R, float), np.asarray(z, float)
+        shift = np.exp(LOG_STEP)
+        with np.errstate(divide="ignore"):
+            dln = (np.log(self.gas.density(R * shift, z))
+                   - np.log(self.gas.density(R / shift, z))) / (2 * LOG_STEP)
+        v2 = -R * self.potential.evaluate(R, z)[1] + self.gas.cs**2 * dln
+        return np.sqrt(np.maximum(np.where(np.isfinite(v2), v2, 0.0), 0.0))
+
+    def mean_velocity(self, position, velocity):
+        """Expected velocity (n, 3): the mean rotation along e_phi."""
+        x, y = position[:, 0], position[:, 1]
+        R = np.hypot(x, y)
+        v = self.mean_vphi(R, position[:, 2])
+        safe = np.where(R > 0, R, 1.0)
+        return np.column_stack([-v * y / safe, v * x / safe, np.zeros_like(R)])
