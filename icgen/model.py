@@ -10,9 +10,8 @@ This is the notebook-facing entry point::
 import numpy as np
 
 from . import config
+from .kinds import KINDS, kind_of
 from .potential import CombinedPotential
-from .potential.gas_solver import solve_gas
-from .profiles import ExponentialDisk, PointMass, make_spheroid
 
 #: Points of the model's rotation curve (the one stored in every snapshot).
 CURVE_POINTS = 120
@@ -21,36 +20,46 @@ CURVE_POINTS = 120
 POINT_MASS_RADIUS = 10.0
 
 
-def build_component(spec, model_spec):
-    """Profile object for one component spec."""
-    if spec.kind == "disk":
-        return ExponentialDisk(spec)
-    if spec.kind == "point_mass":
-        return PointMass(spec.name, spec.mass)
-    return make_spheroid(spec, model_spec.cosmology, model_spec.redshift)
-
-
 class MassModel:
     """A galaxy model in internal units (kpc, km/s, Msun).
 
     Attributes
     ----------
     spec : config.ModelSpec
-    components : dict name -> profile object
+    components : dict name -> profile object, in model-file order
     potential : CombinedPotential
+    gas_solution : the iteration record of the gas layers (None without gas)
     """
 
     def __init__(self, spec):
         self.spec = spec
-        built = {s.name: build_component(s, spec) for s in spec.components
-                 if s.kind != "gas_disk"}
-        self.gas_solution = None
-        gas_specs = [s for s in spec.components if s.kind == "gas_disk"]
-        if gas_specs:
-            gases, self.gas_solution = solve_gas(gas_specs, list(built.values()))
-            built.update({g.name: g for g in gases})
+        built = {}
+        # each kind builds its components (icgen.kinds); self-consistent layers last, in
+        # the potential of the others (in model-file order)
+        for later in (False, True):
+            others = [built[s.name] for s in spec.components if s.name in built]
+            for kind in KINDS.values():
+                specs = [s for s in spec.components if kind_of(s) is kind]
+                if specs and kind.self_consistent == later:
+                    built.update(zip((s.name for s in specs),
+                                     kind.build(specs, spec, others)))
         self.components = {s.name: built[s.name] for s in spec.components}
         self.potential = CombinedPotential(list(self.components.values()))
+        solved = [c for c in self.components.values() if hasattr(c, "solution")]
+        self.gas_solution = solved[0].solution if solved else None
+        self._kinematics = {}
+
+    def kind(self, name):
+        """The Kind (icgen.kinds) of component ``name``."""
+        return kind_of(self.components[name])
+
+    def kinematics(self, name):
+        """The velocity moments of component ``name`` predicted by the method that samples
+        it, computed independently of the sampler (icgen.kinds.base.Kinematics); made once.
+        The one door through which check, stability and mock get a component's moments."""
+        if name not in self._kinematics:
+            self._kinematics[name] = self.kind(name).kinematics(self, name)
+        return self._kinematics[name]
 
     @property
     def name(self):
@@ -58,11 +67,13 @@ class MassModel:
 
     @property
     def disks(self):
-        return [c for c in self.components.values() if c.kind == "disk"]
+        """Stellar disks (profile objects), in model-file order."""
+        return [c for c in self.components.values() if kind_of(c).stellar_disk]
 
     @property
     def gas_disks(self):
-        return [c for c in self.components.values() if c.kind == "gas_disk"]
+        """Gas disks (profile objects), in model-file order."""
+        return [c for c in self.components.values() if kind_of(c).pressure]
 
     def density(self, R, z, component=None):
         """rho (Msun/kpc^3) at cylindrical (R, z) in kpc."""

@@ -15,11 +15,10 @@ import numpy as np
 from ..config import model_warnings
 from .. import defaults
 from ..errors import ModelError, MISSING
+from ..kinds import kind_of
+from ..kinds.spheroid import spherical_range
 from . import seeds
-from .disk_velocities import DiskVelocities
-from .positions import DiskPositions, SpheroidPositions
-from .spheroid_velocities import (SpheroidVelocities, radial_table, TABLE_INNER_FRACTION,
-                                  TABLE_OUTER_FACTOR)
+from .spheroid_velocities import radial_table
 
 # Halo particles heavier than this many disk particles heat the disk numerically
 # (Ludlow et al. 2019, MNRAS 488, L123); common practice is to stay below ~5.
@@ -142,14 +141,14 @@ def plan(model):
 
 def mass_warnings(plans):
     """Messages for halo particles more than MASS_RATIO_LIMIT times heavier than disk ones."""
-    disks = [p for p in plans if p.kind == "disk"]
+    disks = [p for p in plans if kind_of(p).stellar_disk]
     if not disks:
         return []
     light = min(disks, key=lambda p: p.particle_mass)
     out = []
     for p in plans:
         ratio = p.particle_mass / light.particle_mass
-        if p.kind == "halo" and ratio > MASS_RATIO_LIMIT:
+        if kind_of(p).dark and ratio > MASS_RATIO_LIMIT:
             out.append(f"halo particles of {p.name!r} ({p.particle_mass:.3g} Msun) are "
                        f"{ratio:.1f} times heavier than those of disk {light.name!r}; above "
                        f"{MASS_RATIO_LIMIT:g} they heat the disk numerically "
@@ -161,62 +160,29 @@ def mass_warnings(plans):
 _CACHE = weakref.WeakKeyDictionary()
 
 
-class _PointMassSampler:
-    def draw(self, u):
-        n = u.shape[0]
-        return np.zeros((n, 3)), np.zeros((n, 3)), None
+class SharedTables:
+    """Tables that several components' samplers share, made on first use: the spherically
+    averaged total potential of the spheroids (icgen.sampling.spheroid_velocities)."""
 
+    def __init__(self, model):
+        self.model = model
+        self._spherical = None
 
-class _DiskSampler:
-    def __init__(self, disk, spec, potential):
-        self.positions = DiskPositions(disk)
-        self.velocities = DiskVelocities(disk, spec, potential)
-
-    def draw(self, u):
-        R, z, phi = self.positions.sample(u)
-        v_R, v_z, v_phi, clamped = self.velocities.sample(R, z, u[:, 3:6])
-        c, s = np.cos(phi), np.sin(phi)
-        pos = np.column_stack([R * c, R * s, z])
-        vel = np.column_stack([v_R * c - v_phi * s, v_R * s + v_phi * c, v_z])
-        return pos, vel, clamped
-
-
-class _SpheroidSampler:
-    def __init__(self, comp, spec, table):
-        self.positions = SpheroidPositions(comp)
-        self.velocities = SpheroidVelocities(comp, spec, table)
-
-    def draw(self, u):
-        r, nhat = self.positions.sample(u)
-        return r[:, None] * nhat, self.velocities.sample(r, nhat, u[:, 3:7]), None
+    def spherical(self):
+        if self._spherical is None:
+            self._spherical = radial_table(self.model.potential,
+                                           *spherical_range(self.model))
+        return self._spherical
 
 
 def samplers(model):
-    """Per-component samplers (tables included) of ``model``, built once and cached."""
-    if model in _CACHE:
-        return _CACHE[model]
-    specs = model.spec.components
-    spheroids = [model.components[s.name] for s in specs
-                 if model.components[s.name].kind in ("halo", "bulge")]
-    table = None
-    if spheroids:
-        table = radial_table(model.potential,
-                             TABLE_INNER_FRACTION * min(c.scale for c in spheroids),
-                             TABLE_OUTER_FACTOR * max(c.extent for c in spheroids))
-    out = {}
-    for spec in specs:
-        comp = model.components[spec.name]
-        if comp.kind == "point_mass":
-            out[spec.name] = _PointMassSampler()
-        elif comp.kind == "disk":
-            out[spec.name] = _DiskSampler(comp, spec, model.potential)
-        elif comp.kind == "gas_disk":
-            from .gas import GasSampler      # same draw(u) protocol, see gas.py
-            out[spec.name] = GasSampler(comp, model.potential)
-        else:
-            out[spec.name] = _SpheroidSampler(comp, spec, table)
-    _CACHE[model] = out
-    return out
+    """Per-component samplers (tables included) of ``model``, built once and cached; each
+    kind makes its own (icgen.kinds)."""
+    if model not in _CACHE:
+        tables = SharedTables(model)
+        _CACHE[model] = {s.name: kind_of(s).sampler(model, s.name, tables)
+                         for s in model.spec.components}
+    return _CACHE[model]
 
 
 def _block(model, cplan, block, quiet_start, mirror):
@@ -293,7 +259,7 @@ def iter_chunks(model, chunk_size=defaults.CHUNK_PARTICLES, quiet_start=None, mi
         yield from _component_chunks(model, cplan, chunk_size, quiet_start, mirror, report)
         frac = report.clamped_mass_fraction.get(cplan.name, 0.0)
         if frac > 0:
-            kind = "gas disk" if cplan.kind == "gas_disk" else "disk"
+            kind = kind_of(cplan).label
             message = (f"{kind} {cplan.name!r}: mean rotation set to 0 where the asymmetric "
                        f"drift (or pressure support) exceeds v_c, for {frac:.3%} of its "
                        f"mass (too hot there)")
@@ -320,7 +286,7 @@ def _component_chunks(model, cplan, chunk_size, quiet_start, mirror, report):
             held -= k
             emitted += k
     report.timing[cplan.name] = report.timing.get(cplan.name, 0.0) + busy
-    if cplan.kind in ("disk", "gas_disk"):
+    if kind_of(cplan).flattened:
         report.clamped_mass_fraction[cplan.name] = clamped / cplan.count
 
 
