@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import defaults, sampling
+from .sampling import realize
 from .config import ModelSpec
 from .errors import ModelError
 from .paths import check_target, format_bytes
@@ -273,7 +274,7 @@ def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double
             plans = sampling.plan(model)
             estimate = check_free_space(path, spec, plans, precision, compress)
             guard.check()
-            _stage("velocity tables", bars, timing, lambda: sampling.realize.samplers(model))
+            _stage("velocity tables", bars, timing, lambda: realize.samplers(model))
             guard.check()
             with guard.deferred(), SnapshotWriter(path, spec, plans, precision,
                                                   compress) as writer:

@@ -50,7 +50,7 @@ def force_field(potential):
     spheres = (np.array([t[0] for t in terms], np.int64), np.array([t[1] for t in terms]),
                np.array([t[2] for t in terms]))
     return _pack(True, potential.grid, potential.smooth_table(), spheres,
-                 potential.stellar_layers(), not potential.has_gas())
+                 potential.stellar_layers(), not potential.has_python_layers())
 
 
 #: A field with no answer anywhere: every force then comes from the caller's evaluate.

@@ -15,18 +15,19 @@ from .field import force_field
 from .grid import PotentialGrid
 from .multipole import radial_grid, solve
 
-DISK_KINDS = ("disk", "gas_disk")
-
-
 class CombinedPotential:
     """Potential of a list of components (profiles.* objects).
 
     Parameters
     ----------
     components : list
-        Component objects with ``name``, ``analytic_terms()``, ``multipole_density()``.
+        Component objects with ``name``, ``scale``, ``extent``, ``analytic_terms()`` and
+        ``multipole_density()``; optionally ``lmax`` (highest harmonic of their density,
+        0 for a sphere), ``z_d`` (a vertical scale), ``thin_layer_params()`` (a stellar
+        disk's Dehnen & Binney layer, numba-ready) or ``add_layer(...)`` (a layer
+        evaluated in Python: the gas).
     lmax : int
-        Highest even harmonic for non-spherical densities.
+        Highest even harmonic for components that do not give their own.
     """
 
     def __init__(self, components, lmax=defaults.DISK_LMAX, grid=True):
@@ -41,20 +42,19 @@ class CombinedPotential:
             dens = c.multipole_density()
             if dens is None:
                 continue
-            spherical = c.kind not in DISK_KINDS
-            l_c = 0 if spherical else getattr(c, "lmax", lmax)
+            l_c = getattr(c, "lmax", lmax)
             self.tables[c.name] = solve(dens, self.r_grid, l_c,
-                                        4 if spherical else defaults.ANGULAR_NODES, G)
+                                        4 if l_c == 0 else defaults.ANGULAR_NODES, G)
         self._table_cache = {}   # sum of the tables of a set of components, made on first use
         # Two kinds of pieces: closed-form spheres (and point masses, singular at r = 0),
         # always evaluated exactly, and the smooth rest (disk layers, multipole tables),
         # which the fast path interpolates on a grid.
-        self.smooth_names = [c.name for c in components
-                             if c.name in self.tables or c.kind in DISK_KINDS]
+        self.smooth_names = [c.name for c in components if c.name in self.tables
+                             or _stellar_layer(c) or _python_layer(c)]
         self.grid = None
         if self.smooth_names and grid:
             smooth = [self.components[n] for n in self.smooth_names]
-            vertical = [c.z_d for c in smooth if c.kind in DISK_KINDS]
+            vertical = [c.z_d for c in smooth if hasattr(c, "z_d")]
             s = min(vertical) if vertical else 0.1 * min(c.scale for c in smooth)
             self.grid = PotentialGrid(lambda R, z: self._smooth(R, z, self.smooth_names),
                                       s, max(c.extent for c in smooth))
@@ -74,11 +74,12 @@ class CombinedPotential:
         the named stellar disks, in component order, shape (k, 6)."""
         names = self.smooth_names if names is None else names
         rows = [self.components[n].thin_layer_params() for n in names
-                if self.components[n].kind == "disk"]
+                if _stellar_layer(self.components[n])]
         return np.array([[4 * np.pi * G * p[0], *p[1:]] for p in rows]).reshape(-1, 6)
 
-    def has_gas(self):
-        return any(c.kind == "gas_disk" for c in self.components.values())
+    def has_python_layers(self):
+        """True when a layer has no numba form (a gas disk's splines)."""
+        return any(_python_layer(c) for c in self.components.values())
 
     def smooth_table(self, names=None):
         """Sum of the multipole tables of the named components (all smooth: None), or None."""
@@ -137,9 +138,9 @@ class CombinedPotential:
         phi, f_r, f_z = np.zeros_like(Rf), np.zeros_like(Rf), np.zeros_like(Rf)
         for name in names:
             c = self.components[name]
-            if c.kind == "gas_disk":
+            if _python_layer(c):
                 c.add_layer(Rf, zf, G, phi, f_r, f_z)
-            elif c.kind == "disk":
+            elif _stellar_layer(c):
                 s0, r_d, r_t, w_t, z_d, code = c.thin_layer_params()
                 kernels.add_thin_layer(Rf, zf, 4 * np.pi * G * s0, r_d, r_t, w_t, z_d,
                                        int(code), phi, f_r, f_z)
@@ -212,3 +213,13 @@ def _sum(tables):
     for t in tables.values():
         total = t if total is None else total + t
     return total
+
+
+def _stellar_layer(c):
+    """The component has a Dehnen & Binney thin layer with a numba form (stellar disk)."""
+    return hasattr(c, "thin_layer_params")
+
+
+def _python_layer(c):
+    """The component adds a layer evaluated in Python (the gas's splines)."""
+    return hasattr(c, "add_layer")

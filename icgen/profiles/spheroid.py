@@ -107,6 +107,7 @@ class Spheroid:
     """A spherical density rho(r); subclasses give density, mass and (maybe) potential."""
 
     kind = "halo"
+    lmax = 0            # a sphere: the l = 0 term of the multipole expansion
 
     def __init__(self, name, kind, total_mass, scale, extent):
         self.name, self.kind = name, kind
