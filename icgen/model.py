@@ -9,10 +9,10 @@ This is the notebook-facing entry point::
 """
 import numpy as np
 
-from . import config
 from .potential import CombinedPotential
 from .potential.gas_solver import solve_gas
 from .profiles import ExponentialDisk, PointMass, make_spheroid
+from .spec import load_dict, load_spec, spec_from_dict
 
 
 def build_component(spec, model_spec):
@@ -29,7 +29,7 @@ class MassModel:
 
     Attributes
     ----------
-    spec : config.ModelSpec
+    spec : icgen.spec.ModelSpec
     components : dict name -> profile object
     potential : CombinedPotential
     """
@@ -92,7 +92,7 @@ def load_model(source=None, **overrides):
     ``load_model(components={...})``.
     """
     if isinstance(source, dict) or overrides:
-        base = source if isinstance(source, dict) else config.load_dict(source)
+        base = source if isinstance(source, dict) else load_dict(source)
         data = {**base, **overrides}
-        return MassModel(config.spec_from_dict(data))
-    return MassModel(config.load_spec(source))
+        return MassModel(spec_from_dict(data))
+    return MassModel(load_spec(source))

@@ -119,7 +119,7 @@ class OutputUnits:
 
     @classmethod
     def from_spec(cls, output):
-        """From a :class:`icgen.config.OutputSpec`."""
+        """From a :class:`icgen.spec.OutputSpec`."""
         return cls(output.length_unit, output.velocity_unit, output.mass_unit,
                    unit_scale(output.length_unit, "length", "output.length_unit"),
                    unit_scale(output.velocity_unit, "velocity", "output.velocity_unit"),
@@ -137,7 +137,7 @@ def check_format(precision, compress):
 
 
 def check_output_units(output, precision="double"):
-    """OutputUnits of a :class:`icgen.config.OutputSpec`, or ModelError when a unit's
+    """OutputUnits of a :class:`icgen.spec.OutputSpec`, or ModelError when a unit's
     scale would turn a galaxy's values (``_VALUE_RANGES``, internal units) into infinities
     or subnormal numbers of the file's float type, or G (always float64) into one."""
     check_format(precision, None)
@@ -371,7 +371,7 @@ class SnapshotWriter:
     ----------
     path : str or PathLike
         Target file.
-    spec : icgen.config.ModelSpec
+    spec : icgen.spec.ModelSpec
         The resolved model: its ``output`` units, ``seed`` and ``to_toml()`` are stored.
     plans : sequence
         Per component, in file order, objects with ``name``, ``kind`` and ``count``

@@ -111,7 +111,7 @@ class SnapshotFile:
     attrs : dict
         Root attributes as plain Python values.
     components : dict name -> ComponentInfo, in model-file order
-    spec : icgen.config.ModelSpec
+    spec : icgen.spec.ModelSpec
         The model parsed from ``config``.
     """
 
@@ -354,10 +354,10 @@ _RENAMED_KEYS = {"spin": "retrograde_flip_fraction"}
 
 def _stored_spec(config, path):
     """ModelSpec from the ``config`` attribute; a bad one names the attribute."""
-    from .config import _parse_toml, spec_from_dict
+    from .spec import parse_toml, spec_from_dict
     source = f"{path} attribute config"
     try:
-        data = _parse_toml(config, source)
+        data = parse_toml(config, source)
         for table in (data.get("components") or {}).values():
             for old, new in _RENAMED_KEYS.items():
                 if isinstance(table, dict) and old in table and new not in table:
