@@ -23,10 +23,9 @@ import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 
-import astropy.units as u
 import numpy as np
 
-from . import sampling
+from . import defaults, sampling
 from .spec import ModelSpec
 from .errors import ModelError
 from .paths import check_target, format_bytes
@@ -37,10 +36,8 @@ from .snapshot import (SPEED_OF_LIGHT, SnapshotWriter, check_format, check_outpu
 __all__ = ["DEFAULT_CHUNK_SIZE", "BuildInterrupted", "BuildResult", "ComponentSummary",
            "build_snapshot", "check_output_path", "check_free_space", "HANDLED_SIGNALS"]
 
-# Particles per chunk: 2**18 particles are ~15 MB of float64 position, velocity and
-# mass, plus the sampler's work arrays (a few times that): a fixed budget well under
-# 1 GB, and large enough that per-chunk overheads (HDF5 calls) stay below 1 %.
-DEFAULT_CHUNK_SIZE = 262144
+# Particles per chunk (the reason for the number is in defaults.py).
+DEFAULT_CHUNK_SIZE = defaults.CHUNK_PARTICLES
 #: Signals that stop a build cleanly: Ctrl-C, kill, and closing the terminal.
 HANDLED_SIGNALS = tuple(getattr(signal, name) for name in ("SIGINT", "SIGTERM", "SIGHUP")
                         if hasattr(signal, name))
@@ -206,7 +203,7 @@ def _check_options(precision, compress, chunk_size):
     check_format(precision, compress)
     if isinstance(chunk_size, bool) or not isinstance(chunk_size, (int, np.integer)) \
             or chunk_size < 1:
-        raise ModelError("--chunk-size", chunk_size, "must be a whole number >= 1, e.g. 262144")
+        raise ModelError("--chunk-size", chunk_size, f"must be a whole number >= 1, e.g. {DEFAULT_CHUNK_SIZE}")
 
 
 def _resolve_spec(model, seed):
@@ -371,13 +368,8 @@ def _stream(model, writer, plans, chunk_size, bars, timing, report, guard):
 
 def _finish(model, writer, plans, bars, timing, offset, guard):
     """Velocity pass (net momentum to zero), analytic rotation curve and attributes."""
-    from .diagnostics import curve
-
     t0 = time.perf_counter()
-    table = curve.rotation_curve(model, curve.default_radii(model))
-    radius = table["radius"].to_value(u.kpc)
-    speeds = {name: table[f"v_circ_{name}"].to_value(u.km / u.s)
-              for name in ["total"] + [p.name for p in plans]}
+    radius, speeds = model.rotation_curve()
     with stage_bar("momentum", sum(p.count for p in plans), bars, unit=" particles") as bar:
         def progress(n):
             guard.check()

@@ -69,7 +69,7 @@ def build_parser():
                    help="chunked datasets with shuffle and this filter (default: plain "
                         "contiguous datasets, the fastest to read)")
     p.add_argument("--chunk-size", type=int, default=None,
-                   help="particles held in memory at a time (default 262144); the file "
+                   help="particles held in memory at a time (default 2**18 = 262144); the file "
                         "does not depend on it")
     p.add_argument("--quiet", action="store_true", help="no progress bars and no summary")
     p.add_argument("--remove-stale", action="store_true",

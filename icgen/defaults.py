@@ -19,6 +19,12 @@ DISK_LMAX = 64
 # cluster at the midplane (mu = 0), where the disk residual is narrow.
 ANGULAR_NODES = 128
 
+# Particles sampled, converted and written per chunk by default: 2**18 particles are ~15 MB
+# of float64 position, velocity and mass, plus the sampler's work arrays (a few times
+# that): a fixed budget well under 1 GB, and large enough that per-chunk overheads (numba
+# calls, HDF5 calls) stay below 1 %.
+CHUNK_PARTICLES = 2**18
+
 # Midplane table for v_c, Omega, kappa: log-spaced radii.
 MIDPLANE_POINTS = 800
 

@@ -14,6 +14,12 @@ from .potential.gas_solver import solve_gas
 from .profiles import ExponentialDisk, PointMass, make_spheroid
 from .spec import load_dict, load_spec, spec_from_dict
 
+#: Points of the model's rotation curve (the one stored in every snapshot).
+CURVE_POINTS = 120
+#: Outer radius (kpc) of the curve of a model with no length scale (point masses only):
+#: the size of a galaxy's disk.
+POINT_MASS_RADIUS = 10.0
+
 
 def build_component(spec, model_spec):
     """Profile object for one component spec."""
@@ -73,6 +79,33 @@ class MassModel:
     def circular_speed(self, R, component=None):
         """Midplane circular speed (km/s) at R (kpc), total or one component."""
         return self.potential.circular_speed(R, component)
+
+    def reference_scale_length(self):
+        """Scale length (kpc) of the most massive disk, or None without disks."""
+        disks = self.disks
+        if not disks:
+            return None
+        return max(disks, key=lambda d: d.total_mass).R_d
+
+    def curve_radii(self, n=CURVE_POINTS):
+        """``n`` radii (kpc), evenly spaced from r_out / n to r_out: r_out is 10 R_d of the
+        main disk, else 5 x the largest spheroid scale radius, else POINT_MASS_RADIUS."""
+        r_d = self.reference_scale_length()
+        scales = [c.scale for c in self.components.values() if c.scale > 0]
+        r_out = 10 * r_d if r_d else 5 * max(scales) if scales else POINT_MASS_RADIUS
+        return np.linspace(r_out / n, r_out, n)
+
+    def rotation_curve(self, radii=None):
+        """Analytic midplane rotation curve, v_c^2 = R dPhi/dR at z = 0.
+
+        Returns (radii (M,) kpc, speeds): ``speeds`` maps "total" and each component
+        name to (M,) km/s. ``radii`` default: :meth:`curve_radii`.
+        """
+        R = self.curve_radii() if radii is None else np.asarray(radii, float)
+        speeds = {"total": self.circular_speed(R)}
+        for name in self.components:
+            speeds[name] = self.circular_speed(R, name)
+        return R, speeds
 
     def enclosed_mass(self, r, component=None):
         """Mass (Msun) inside spheres of radius r (kpc), total or one component."""

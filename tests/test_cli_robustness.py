@@ -26,6 +26,7 @@ import numpy as np
 import pytest
 
 from icgen import paths, sampling, snapshot
+from icgen.snapshot.diskfile import DiskFile
 from icgen.cli import main
 
 REPO = Path(__file__).resolve().parents[1]
@@ -170,7 +171,7 @@ def test_full_disk_is_one_line_and_keeps_the_old_file(tmp_path, monkeypatch, cap
     model = halo_model(tmp_path)
     target = tmp_path / "galaxy.h5"
     target.write_bytes(b"old snapshot")
-    real = snapshot._DiskFile.__init__
+    real = DiskFile.__init__
 
     def on_full_disk(self, path):
         real(self, path)
@@ -178,7 +179,7 @@ def test_full_disk_is_one_line_and_keeps_the_old_file(tmp_path, monkeypatch, cap
         self._f.close()
         self._f = _FullDisk(fd, "r+b")
 
-    monkeypatch.setattr(snapshot._DiskFile, "__init__", on_full_disk)
+    monkeypatch.setattr(DiskFile, "__init__", on_full_disk)
     assert main(["build", model, "-o", str(target), "--quiet", "--overwrite"]) == 74
     one_line_error(capsys, "no space left on device (ENOSPC)", "300.0 kB written",
                    f"needs about {paths.format_bytes(estimate(model))}", "nothing written")

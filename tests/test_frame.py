@@ -16,7 +16,7 @@ from icgen.spec import spec_from_dict
 from icgen.diagnostics import check
 from icgen.frame import find_frame, galaxy_frame
 from icgen.mock import Geometry, Instrument, observe
-from icgen.snapshot_read import open_snapshot
+from icgen.snapshot import open_snapshot
 
 # A cool disk in a Hernquist halo, with a Hernquist bulge: the case that was written 5 kpc
 # off-centre before the model's centre became the origin of the file.

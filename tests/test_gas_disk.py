@@ -204,3 +204,16 @@ def test_gas_disk_around_a_black_hole(tmp_path, gas_model):
     assert cli.main(["check", str(snap), "--quiet"]) == 0
     assert cli.main(["curve", str(path), "--quiet"]) == 0
     assert cli.main(["stability", str(path), "--quiet"]) == 0
+
+
+def test_gas_enclosed_mass_from_its_own_layer(gas_model):
+    # M(<r) of the hydrostatic layer: all of the mass far out (the layer is cut at the
+    # disk's extent); inside r = 2 R_d, the thin-disk limit 1 - (1 + x) e^-x at x = 2
+    # (Freeman 1970, ApJ 160, 811, the exponential disk's cylindrical mass), less the part
+    # of the thick layer outside the sphere, which the sphere's cap removes: a few % at most
+    # for a layer whose half-height at R_d is ~0.1 R_d, and never more than the thin limit.
+    gas = gas_model.components["gas"]
+    assert gas.enclosed_mass(2 * gas.extent)[0] == pytest.approx(gas.total_mass, rel=1e-4)
+    thin = gas.total_mass * (1 - 3 * np.exp(-2.0))
+    inside = gas.enclosed_mass(2 * gas.R_d)[0]
+    assert 0.95 * thin < inside < thin

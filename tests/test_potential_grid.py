@@ -13,8 +13,9 @@ def _errors(potential, R, z):
 
 def test_grid_matches_exact_default_model(default_model):
     # Heavy-tailed random points from the centre to beyond the halo cut-off. Cubic B-spline
-    # error ~ h^4 f'''' with h = 0.025 in asinh(R/z_d): measured 3e-6 of |F| within 0.05 kpc
-    # of the NFW cusp and <= 1.2e-6 elsewhere; the bars leave a margin of ~10.
+    # error ~ h^4 f'''' with h = 0.025 in asinh(R/z_d): measured 1.1e-7 for Phi, 1.3e-6 of
+    # |F| just outside the exact core around the NFW and Hernquist cusps and 9e-7 beyond
+    # 1 kpc; the bars leave a margin of ~10.
     rng = np.random.default_rng(7)
     n = 200_000
     R = np.minimum(np.abs(rng.standard_cauchy(n)) * 5, 3000)
@@ -22,7 +23,7 @@ def test_grid_matches_exact_default_model(default_model):
     e_phi, e_f = _errors(default_model.potential, R, z)
     r = np.hypot(R, z)
     assert e_phi.max() < 1e-6
-    assert e_f[r > 0.05].max() < 3e-4
+    assert e_f[r > 0.05].max() < 1.5e-5
     assert e_f[r > 1.0].max() < 1e-5
 
 

@@ -45,8 +45,8 @@ def model():
 
 @pytest.mark.parametrize("options", [{}, {"quiet_start": True, "mirror": True}])
 def test_chunk_size_does_not_change_the_particles(model, options):
-    # DESIGN.md sec. 7: same seed, same bytes whatever the chunk size (1e4 is not a block
-    # multiple; 1e6 holds each component in one chunk).
+    # Same seed, same bytes whatever the chunk size (docs/snapshot-format.md; 1e4 is not
+    # a block multiple; 1e6 holds each component in one chunk).
     assert_identical(collect(model, 10_000, **options), collect(model, 1_000_000, **options))
 
 
@@ -158,3 +158,22 @@ def test_sample_keeps_positions_and_removes_the_net_momentum(model):
 def test_bad_chunk_size_is_a_model_error(model):
     with pytest.raises(ModelError, match="chunk_size"):
         next(sampling.iter_chunks(model, 0))
+
+
+def test_report_pieces_merge_to_the_same_centre_of_mass(model):
+    # A streamed run's per-block sums, split between two reports (as pieces made by two
+    # workers would be) and filled in another order, reduce to the same bits: the
+    # reduction runs in fixed (component, block) order whoever made which block.
+    whole = sampling.SamplingReport()
+    for _ in sampling.iter_chunks(model, 50_000, report=whole):
+        pass
+    assert sorted(whole.block_sums) == [(0, 0), (0, 1), (0, 2), (1, 0), (1, 1), (2, 0),
+                                        (3, 0)]
+    odd, even = sampling.SamplingReport(), sampling.SamplingReport()
+    for key in sorted(whole.block_sums, reverse=True):
+        (odd if key[1] % 2 else even).block_sums[key] = whole.block_sums[key]
+    odd.merge(even)
+    for got, want in zip(odd.center_of_mass(), whole.center_of_mass()):
+        assert got.tobytes() == want.tobytes()
+    with pytest.raises(ValueError, match="recorded twice"):
+        odd.merge(even)

@@ -5,11 +5,14 @@ import numpy as np
 import pytest
 from numba import njit, prange
 
-from conftest import model_from_components
+from conftest import model_from_components, uncut_mass
 from icgen import sampling
 from icgen.units import G
 
-M, A, N = 1e10, 1.0, 100_000
+# A far outer cut (5000 a): the sampled sphere is the Hernquist law of mass M (its uncut
+# mass) to 4e-4, so its potential is the closed form integrated here.
+A, N = 1.0, 100_000
+M = uncut_mass("hernquist")
 
 
 @njit(cache=True, parallel=True)
@@ -50,7 +53,8 @@ def counts_inside(x, radii):
 def evolve(method):
     model = model_from_components({"b": {"kind": "bulge", "profile": "hernquist",
                                          "mass": "1e10 Msun", "scale_radius": "1 kpc",
-                                         "particles": N, "velocities": method}})
+                                         "outer_radius": "5000 kpc", "particles": N,
+                                         "velocities": method}})
     c = sampling.particles(model, "b", 0, N)
     x, v = c.position.copy(), c.velocity.copy()
     # dynamical time at the half-mass radius r_h = (1 + sqrt 2) a (Hernquist 1990, eq. 4):
@@ -81,15 +85,6 @@ def test_eddington_hernquist_stays_in_equilibrium():
           f"2T/|W| {virial:.4f}")
     assert de < 1e-4                                   # the integrator is not the issue
     assert np.all(np.abs(n1 - n0) < 3 * np.sqrt(2 * n0)), (n0, n1)
-
-
-@pytest.mark.slow
-def test_jeans_maxwellian_hernquist_runs():
-    # Truncated-Maxwellian Jeans velocities are not an equilibrium of a cusp (Kazantzidis,
-    # Magorrian & Moore 2004, ApJ 601, 37): reported for comparison, nothing asserted
-    # about the drift.
-    radii, n0, n1, de, virial = evolve("jeans")
-    print(f"\njeans: r/a {radii}, n(t=0) {n0}, n(10 t_dyn) {n1}, "
-          f"change/noise {(n1 - n0) / np.sqrt(2 * n0)}, median |dE/E| {de:.1e}, "
-          f"2T/|W| {virial:.4f}")
-    assert np.all(n1 > 0)
+    # virial theorem 2T = -W = sum G M m r/(r + a)^2 (Binney & Tremaine 2008, eq. 4.249);
+    # the noise of 1e5 particles is ~0.3 % (measured over seeds), 1 % is ~3 times that
+    assert virial == pytest.approx(1.0, abs=0.01)

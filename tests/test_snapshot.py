@@ -1,5 +1,5 @@
-"""Snapshot writer and reader alone: round trips, units, guards, schema (README.md,
-"Snapshot file format").
+"""Snapshot writer and reader alone: round trips, units, guards, schema
+(docs/snapshot-format.md).
 
 The particles here are invented (random numbers from a seeded generator): the writer is
 checked for storing exactly what it is given, independently of the samplers.
@@ -18,8 +18,10 @@ import pytest
 from icgen.spec import spec_from_dict, spec_from_toml_text
 from icgen.errors import ModelError
 from icgen.sampling import ParticleChunk
-from icgen.snapshot import (NonFiniteError, SnapshotWriter, describe, partial_path,
-                            read_header, read_rows, read_snapshot)
+from icgen.snapshot import (FileUnits, NonFiniteError, SnapshotWriter, check_output_units,
+                            create_datasets, describe, partial_path, read_header, read_rows,
+                            read_snapshot, write_chunk)
+from icgen.snapshot.schema import first_ids
 
 Plan = namedtuple("Plan", "name kind count")
 
@@ -330,3 +332,48 @@ def test_gas_internal_energy_is_stored_in_velocity_unit_squared(tmp_path):
         with SnapshotWriter(tmp_path / "gas2.h5", spec, plans) as w:
             w.append(chunk)
     assert sorted(os.listdir(tmp_path)) == ["gas.h5"]
+
+
+def test_a_piece_of_one_component_written_alone_matches_the_whole_file(tmp_path):
+    # The seam for spreading a build over workers: a block range of one component,
+    # written into its own file by create_datasets + write_chunk (rows from an offset,
+    # ids of the whole file), holds exactly the rows and ids of the whole file.
+    spec, parts = make_spec(), invented_particles()
+    whole = tmp_path / "whole.h5"
+    w = write(whole, spec, parts, momentum=(np.zeros(3), np.zeros(3)))
+    lo, hi = 1000, 2500
+    x, v, m = (a[lo:hi] for a in parts["halo"])
+    first = first_ids([p.count for p in PLANS])[0]
+    with h5py.File(tmp_path / "piece.h5", "w") as f:
+        g = f.create_group("halo")
+        create_datasets(g, "halo", hi - lo, np.dtype("<f8"))
+        for a in range(lo, hi, 600):       # any chunking of the piece
+            b = min(a + 600, hi)
+            write_chunk(g, ParticleChunk("halo", a, x[a - lo:b - lo], v[a - lo:b - lo],
+                                         m[a - lo:b - lo]), "halo", w.units, first,
+                        offset=lo)
+        piece = {k: g[k][()] for k in g}
+    with h5py.File(whole, "r") as f:
+        for key, values in piece.items():
+            assert values.tobytes() == f[f"particles/halo/{key}"][lo:hi].tobytes(), key
+    assert piece["id"][0] == first + lo == 1001      # ids run from 1 over the file
+
+
+def test_file_units_convert_both_ways_as_astropy_does():
+    # The factors against astropy's own conversions (astropy.units), both directions.
+    units = FileUnits.parse("pc", "m/s", "1e10 Msun")
+    x = np.array([0.5, 8.0, 250.0])                   # kpc, km/s, Msun, (km/s)^2
+    cases = {"position": (u.kpc, u.pc), "radius": (u.kpc, u.pc),
+             "velocity": (u.km / u.s, u.m / u.s), "v_circ_disk": (u.km / u.s, u.m / u.s),
+             "mass": (u.Msun, 1e10 * u.Msun),
+             "internal_energy": ((u.km / u.s) ** 2, (u.m / u.s) ** 2)}
+    for key, (internal, file_unit) in cases.items():
+        in_file = units.to_file(key, x)
+        np.testing.assert_allclose(in_file, (x * internal).to_value(file_unit), rtol=1e-15)
+        np.testing.assert_allclose(units.to_internal(key, in_file), x, rtol=1e-15)
+    with pytest.raises(KeyError):
+        units.scale("id")
+    # the writer's checked units are the same object the reader parses from a file
+    output = namedtuple("Output", "length_unit velocity_unit mass_unit")("pc", "m/s",
+                                                                         "1e10 Msun")
+    assert check_output_units(output) == units

@@ -1,4 +1,4 @@
-"""Damaged snapshots: every reader validates the file in one place (icgen.snapshot_read).
+"""Damaged snapshots: every reader validates the file in one place (icgen.snapshot.validate).
 
 A small snapshot is built once with ``build_snapshot``; each test copies it, damages the
 copy with h5py (as an edit or a cut after writing would) and runs the commands in-process
@@ -17,7 +17,7 @@ from conftest import model_from_components
 from icgen.cli import main
 from icgen.errors import ModelError
 from icgen.snapshot import load_model_from_snapshot, read_header, read_rows, read_snapshot
-from icgen.snapshot_read import SLAB_ROWS, check_values, open_snapshot
+from icgen.snapshot import SLAB_ROWS, check_values, open_snapshot
 
 N_HALO, N_DISK = 3000, 2000
 
@@ -75,7 +75,7 @@ def _delete(dataset):
 
 
 # (damage, words the one-line error must contain): each a damage seen in the field or a
-# rule of the schema (README.md, "Snapshot file format")
+# rule of the schema (docs/snapshot-format.md)
 HEADER_DAMAGE = {
     "config not text": (_set_attr("/", "config", 5), "attribute config"),
     "config not TOML": (_set_attr("/", "config", "[model"), "attribute config"),

@@ -55,7 +55,7 @@ def test_G_matches_astropy_constants_converted_by_hand():
     # conversion is redone here, so agreement to 1e-12 (float rounding) is expected.
     expected = const.G.si.value * const.M_sun.si.value / (KPC_M * 1e6)
     assert G == pytest.approx(expected, rel=1e-12)
-    # The project's quoted value (DESIGN.md section 3), to its 7 digits.
+    # The value README.md quotes ("Python API"), to its 7 digits.
     assert G == pytest.approx(4.300917e-6, rel=1e-7)
 
 

@@ -42,7 +42,6 @@ def test_bar_parameter_by_hand():
     # Efstathiou, Lake & Negroponte (1982, MNRAS 199, 1069): eps = v_max/sqrt(G M_d/R_d).
     # By hand: sqrt(4.300917e-6 * 5e10 / 3) = sqrt(71681.95) = 267.7349; 200/267.7349 = 0.747007.
     assert st.bar_parameter(200.0, 5e10, 3.0) == pytest.approx(0.747007, rel=2e-6)
-    assert st.BAR_THRESHOLD == 1.1      # their stability boundary
 
 
 def test_power_relaxation_ratio_by_hand_and_from_its_definition():

@@ -15,34 +15,22 @@ BARYONIC_KINDS = ("disk", "bulge", "point_mass", "gas_disk")
 
 def reference_scale_length(model):
     """Scale length (kpc) of the most massive disk, or None without disks."""
-    disks = model.disks
-    if not disks:
-        return None
-    return max(disks, key=lambda d: d.total_mass).R_d
-
-
-# Outer radius (kpc) of the table of a model with no length scale (point masses only):
-# the size of a galaxy's disk.
-POINT_MASS_RADIUS = 10.0
+    return model.reference_scale_length()
 
 
 def default_radii(model, n=120):
-    """Radii (kpc) for the table: out to 10 R_d of the main disk, else 5 x the largest
-    spheroid scale radius, else (point masses only) POINT_MASS_RADIUS."""
-    r_d = reference_scale_length(model)
-    scales = [c.scale for c in model.components.values() if c.scale > 0]
-    r_out = 10 * r_d if r_d else 5 * max(scales) if scales else POINT_MASS_RADIUS
-    return np.linspace(r_out / n, r_out, n)
+    """The model's curve radii (kpc, :meth:`icgen.model.MassModel.curve_radii`)."""
+    return model.curve_radii(n)
 
 
 def rotation_curve(model, radii=None):
-    """QTable with ``radius`` (kpc), ``v_circ_total`` and ``v_circ_<name>`` (km/s)."""
-    R = default_radii(model) if radii is None else np.asarray(radii, float)
+    """QTable with ``radius`` (kpc), ``v_circ_total`` and ``v_circ_<name>`` (km/s), from
+    :meth:`icgen.model.MassModel.rotation_curve`."""
+    R, speeds = model.rotation_curve(radii)
     t = QTable()
     t["radius"] = R * u.kpc
-    t["v_circ_total"] = model.circular_speed(R) * u.km / u.s
-    for name in model.components:
-        t[f"v_circ_{name}"] = model.circular_speed(R, name) * u.km / u.s
+    for name, v in speeds.items():
+        t[f"v_circ_{name}"] = v * u.km / u.s
     t.meta["model"] = model.name
     t.meta["note"] = "analytic midplane circular speed, v^2 = R dPhi/dR at z = 0"
     return t

@@ -56,7 +56,7 @@ from ..errors import MISSING, ModelError
 from ..frame import galaxy_frame, subset_rows
 from ..integrate import Orbits, pericentre, substeps
 from ..progress import progress_enabled, stage_bar
-from ..snapshot_read import check_values
+from ..snapshot import check_values, open_snapshot
 from ..units import TIME_UNIT_GYR, parse_quantity
 from . import measure
 
@@ -583,7 +583,7 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
     floats in Gyr; ``sample`` the number of particles to integrate (None: all), drawn
     with ``seed`` (None: the snapshot's seed). Every option is checked before the file is
     read; a bad one raises ModelError naming it. The file is validated on opening and its
-    values as they are read (icgen.snapshot_read).
+    values as they are read (icgen.snapshot).
     """
     duration = parse_time(duration, "--time")
     if duration is None:
@@ -596,7 +596,6 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
     outputs = parse_whole(outputs, "--outputs", 1, OUTPUTS)
     threshold = parse_number(threshold, "--threshold", THRESHOLD)
     from ..model import MassModel
-    from ..snapshot_read import open_snapshot
     t0 = time.perf_counter()
     with open_snapshot(path) as snap:
         seed = int(snap.attrs["seed"]) if seed is None else seed

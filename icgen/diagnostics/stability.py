@@ -38,10 +38,10 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 from scipy import optimize
 
+from ..sampling.disk_velocities import TOOMRE_CONSTANT
+from ..sampling.realize import MASS_RATIO_LIMIT
 from ..units import G, critical_density
 
-# Toomre's constant for a stellar disk: 3.36 = 2 pi x 0.535 (Toomre 1964).
-TOOMRE_CONSTANT = 3.36
 # Local axisymmetric stability threshold (Toomre 1964).
 Q_THRESHOLD = 1.0
 # Strong swing amplification of m = 2 for 1 < X_2 < 3 (Toomre 1981; common practice).
@@ -52,9 +52,6 @@ BAR_THRESHOLD = 1.1
 MAXIMAL_DISK = (0.85, 0.10)
 # Power et al. (2003) convergence criterion on kappa_P = t_relax(r)/t_circ(r200).
 POWER_KAPPA = 0.6
-# Halo-to-disk particle mass ratio above which numerical heating is a concern
-# (Ludlow et al. 2019; common practice).
-MASS_RATIO_LIMIT = 5.0
 # Radii of the Q and X_2 curves, in disk scale lengths: inside 0.05 R_d Q is huge
 # (kappa diverges), beyond 10 R_d there is almost no disk mass (5e-4 of it).
 CURVE_RANGE = (0.05, 10.0)
@@ -456,6 +453,6 @@ def load_source(source):
     # snapshot reader's error, not the TOML parser's)
     if source is not None and os.path.isfile(source) and (
             h5py.is_hdf5(source) or str(source).lower().endswith(SNAPSHOT_SUFFIXES)):
-        from ..snapshot_read import load_model_from_snapshot
+        from ..snapshot import load_model_from_snapshot
         return load_model_from_snapshot(source)
     return MassModel(load_spec(source))

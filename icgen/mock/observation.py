@@ -170,7 +170,7 @@ def tracer_particles(source, tracer, model=None):
     (particles dict, kind, model, frame)
     """
     from ..frame import galaxy_frame
-    from ..snapshot_read import Snapshot, check_values, read_snapshot
+    from ..snapshot import Snapshot, check_values, read_snapshot
 
     if isinstance(source, (str, os.PathLike)):
         source = read_snapshot(source)          # validated as it is read

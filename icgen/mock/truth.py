@@ -12,17 +12,9 @@ import numpy as np
 from astropy.table import QTable
 import astropy.units as u
 
-__all__ = ["cylindrical", "truth_table", "stellar_moments"]
+from ..diagnostics.measure import cylindrical
 
-
-def cylindrical(position, velocity):
-    """(R kpc, z kpc, v_R, v_phi, v_z km/s) of particles in the galaxy frame."""
-    x, y, z = position[:, 0], position[:, 1], position[:, 2]
-    R = np.hypot(x, y)
-    safe = np.where(R > 0, R, 1.0)
-    v_R = (x * velocity[:, 0] + y * velocity[:, 1]) / safe
-    v_phi = (x * velocity[:, 1] - y * velocity[:, 0]) / safe
-    return R, z, v_R, v_phi, velocity[:, 2]
+__all__ = ["truth_table", "stellar_moments"]
 
 
 def stellar_moments(model, tracer):

@@ -59,30 +59,32 @@ def locate(R, z, s, h, x_max, core, half):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
+def _spline_sum(ix, iy, wx, w0, w1, w2, w3, c, j):
+    """B-spline sum of slot j of the coefficients c[i, k, j] on a cell, with the weights
+    wx (x direction, 4 values) and w0..w3 (y direction)."""
+    p = 0.0
+    for di in range(4):
+        k = ix - 1 + di
+        p += wx[di] * (w0 * c[k, iy - 1, j] + w1 * c[k, iy, j] + w2 * c[k, iy + 1, j]
+                       + w3 * c[k, iy + 2, j])
+    return p
+
+
+@njit(cache=True, error_model="numpy", inline="always")
 def spline_force(ix, iy, tx, ty, c):
     """(F_R, F_z): B-spline sums on a cell of the interleaved coefficients c[i, j, 0:2]."""
     wx = _bspline_weights(tx)
     w0, w1, w2, w3 = _bspline_weights(ty)
-    a, b = 0.0, 0.0
-    for di in range(4):
-        k = ix - 1 + di
-        a += wx[di] * (w0 * c[k, iy - 1, 0] + w1 * c[k, iy, 0] + w2 * c[k, iy + 1, 0]
-                       + w3 * c[k, iy + 2, 0])
-        b += wx[di] * (w0 * c[k, iy - 1, 1] + w1 * c[k, iy, 1] + w2 * c[k, iy + 1, 1]
-                       + w3 * c[k, iy + 2, 1])
-    return a, b
+    return (_spline_sum(ix, iy, wx, w0, w1, w2, w3, c, 0),
+            _spline_sum(ix, iy, wx, w0, w1, w2, w3, c, 1))
 
 
 @njit(cache=True, error_model="numpy", inline="always")
 def spline_potential(ix, iy, tx, ty, c):
-    """Phi: the B-spline sum on a cell of the coefficients c[i, j]."""
+    """Phi: the B-spline sum on a cell of the coefficients c[i, j, 0]."""
     wx = _bspline_weights(tx)
     w0, w1, w2, w3 = _bspline_weights(ty)
-    p = 0.0
-    for di in range(4):
-        k = ix - 1 + di
-        p += wx[di] * (w0 * c[k, iy - 1] + w1 * c[k, iy] + w2 * c[k, iy + 1] + w3 * c[k, iy + 2])
-    return p
+    return _spline_sum(ix, iy, wx, w0, w1, w2, w3, c, 0)
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
@@ -102,7 +104,7 @@ def interpolate(R, z, s, h, x_max, core, c_phi, c_force, phi, f_r, f_z, outside)
 class PotentialGrid:
     """Interpolation grid of an exact evaluator ``exact(R, z) -> (Phi, F_R, F_z)``."""
 
-    def __init__(self, exact, s, r_max, core_cells=6, per_unit=defaults.GRID_NODES_PER_ASINH_UNIT):
+    def __init__(self, exact, s, r_max, core_cells=16, per_unit=defaults.GRID_NODES_PER_ASINH_UNIT):
         self.s = float(s)
         x_max = math.asinh(r_max / s)
         half = int(math.ceil(x_max * per_unit))
@@ -115,7 +117,7 @@ class PotentialGrid:
         phi, f_r, f_z = (a.reshape(R.shape) for a in exact(R.ravel(), Z.ravel()))
         c_phi, c_fr, c_fz = (spline_filter(_unfold(q, sr, sz), order=3, mode="mirror")
                              for q, sr, sz in ((phi, 1, 1), (f_r, -1, 1), (f_z, 1, -1)))
-        self.c_phi = c_phi
+        self.c_phi = np.ascontiguousarray(c_phi[:, :, None])      # one slot, as c_force
         self.c_force = np.ascontiguousarray(np.stack([c_fr, c_fz], axis=-1))
 
     def evaluate(self, R, z):

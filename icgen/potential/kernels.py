@@ -25,6 +25,14 @@ def sphere_point(r, code, gm, a):
     return -gm / math.sqrt(s2), gm * r / (s2 * math.sqrt(s2))
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def _add(i, piece, phi, f_r, f_z):
+    """Add one point's (Phi, F_R, F_z) to the output arrays at index i."""
+    phi[i] += piece[0]
+    f_r[i] += piece[1]
+    f_z[i] += piece[2]
+
+
 @njit(cache=True, parallel=True, error_model="numpy")
 def add_spherical(R, z, code, gm, a, phi, f_r, f_z):
     """Add a closed-form sphere (:func:`sphere_point`); radial force -dPhi/dr projected
@@ -77,10 +85,8 @@ def thin_layer_point(R, z, four_pi_g_sigma0, r_d, r_t, w_t, z_d, code):
 def add_thin_layer(R, z, four_pi_g_sigma0, r_d, r_t, w_t, z_d, code, phi, f_r, f_z):
     """Add the Dehnen & Binney thin layer (:func:`thin_layer_point`) at every point."""
     for i in prange(R.shape[0]):
-        p, a, b = thin_layer_point(R[i], z[i], four_pi_g_sigma0, r_d, r_t, w_t, z_d, code)
-        phi[i] += p
-        f_r[i] += a
-        f_z[i] += b
+        _add(i, thin_layer_point(R[i], z[i], four_pi_g_sigma0, r_d, r_t, w_t, z_d, code),
+             phi, f_r, f_z)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -167,7 +173,5 @@ def multipole_point(R, z, lnr0, h, rnodes, phi_t, dphi_t, d2phi_t):
 def add_multipole(R, z, lnr0, h, rnodes, phi_t, dphi_t, d2phi_t, phi, f_r, f_z):
     """Add the multipole expansion (:func:`multipole_point`) at every point."""
     for i in prange(R.shape[0]):
-        p, a, b = multipole_point(R[i], z[i], lnr0, h, rnodes, phi_t, dphi_t, d2phi_t)
-        phi[i] += p
-        f_r[i] += a
-        f_z[i] += b
+        _add(i, multipole_point(R[i], z[i], lnr0, h, rnodes, phi_t, dphi_t, d2phi_t),
+             phi, f_r, f_z)

@@ -48,25 +48,22 @@ def vertical_h(z, z_d, code):
     return 0.5 * z_d * (e - 1 + a), 0.5 * s * (1 - e)
 
 
-class ExponentialDisk:
-    """An exponential disk component built from a DiskSpec (units kpc, Msun)."""
+class ExponentialSurface:
+    """Sigma(R) = Sigma0 exp(-R/R_d) T(R) of mass ``mass`` (Msun), scale length ``R_d``
+    (kpc) and the optional erfc taper at ``taper_radius`` over ``taper_width`` (default
+    0.5 R_d): the surface density of a stellar or a gas disk. Sampled out to ``extent``."""
 
-    kind = "disk"
-
-    def __init__(self, spec):
-        self.name, self.spec = spec.name, spec
-        self.total_mass = float(spec.mass)
-        self.R_d, self.z_d = float(spec.scale_length), float(spec.scale_height)
-        self.vertical = VERTICAL_CODES[spec.vertical]
-        self.R_t = float(spec.taper_radius) if spec.taper_radius else np.inf
-        self.w_t = float(spec.taper_width) if spec.taper_width else 0.5 * self.R_d
+    def __init__(self, mass, R_d, taper_radius=None, taper_width=None):
+        self.total_mass = float(mass)
+        self.R_d = float(R_d)
+        self.R_t = float(taper_radius) if taper_radius else np.inf
+        self.w_t = float(taper_width) if taper_width else 0.5 * self.R_d
         if np.isfinite(self.R_t):
             norm, _ = integrate.quad(lambda R: 2 * np.pi * R * self._shape(R)[0],
                                      0, self.R_t + 20 * self.w_t, limit=200)
         else:
             norm = 2 * np.pi * self.R_d**2
         self.sigma0 = self.total_mass / norm   # Msun/kpc^2
-        self.scale = self.z_d
         self.extent = min(40 * self.R_d, self.R_t + 12 * self.w_t)
 
     def _shape(self, R):
@@ -89,6 +86,21 @@ class ExponentialDisk:
         """(Sigma, dSigma/dR, d2Sigma/dR2) in Msun/kpc^2 per kpc^n."""
         s, s1, s2 = self._shape(R)
         return self.sigma0 * s, self.sigma0 * s1, self.sigma0 * s2
+
+
+
+class ExponentialDisk(ExponentialSurface):
+    """An exponential stellar disk built from a DiskSpec (units kpc, Msun): the surface
+    density times the vertical law zeta(z) of scale height z_d."""
+
+    kind = "disk"
+
+    def __init__(self, spec):
+        super().__init__(spec.mass, spec.scale_length, spec.taper_radius, spec.taper_width)
+        self.name, self.spec = spec.name, spec
+        self.z_d = float(spec.scale_height)
+        self.vertical = VERTICAL_CODES[spec.vertical]
+        self.scale = self.z_d
 
     def density(self, R, z):
         """rho(R, z) = Sigma(R) zeta(z) in Msun/kpc^3."""

@@ -13,22 +13,25 @@ is smooth in angle and goes to the multipole expansion. For rho = Sigma(R) zeta(
 is exactly the stellar-disk split (F = Sigma H).
 """
 import numpy as np
+from scipy import integrate
 from scipy.integrate import cumulative_trapezoid, trapezoid
 from scipy.interpolate import CubicSpline, RectBivariateSpline
 
 from .. import defaults
-from .disk import ExponentialDisk
+from .disk import ExponentialSurface
 
 
-class GasDisk(ExponentialDisk):
-    """Gas disk component; ``z_ref`` (kpc) sets the vertical grid scale (s_z = 0.05 z_ref)."""
+class GasDisk(ExponentialSurface):
+    """Gas disk component; ``z_ref`` (kpc) sets the vertical grid scale (s_z = 0.05 z_ref)
+    and is its vertical scale ``z_d`` for the potential's grid and the diagnostics."""
 
     kind = "gas_disk"
     lmax = defaults.GAS_LMAX
 
     def __init__(self, spec, z_ref):
-        super().__init__(_LayerSpec(spec, z_ref))
+        super().__init__(spec.mass, spec.scale_length, spec.taper_radius, spec.taper_width)
         self.name, self.spec = spec.name, spec
+        self.z_d = self.scale = float(z_ref)
         self.cs = spec.cs
         self.gamma = spec.adiabatic_index
         n_r, n_z = defaults.GAS_GRID_R, defaults.GAS_GRID_Z
@@ -47,10 +50,39 @@ class GasDisk(ExponentialDisk):
         self._q = RectBivariateSpline(self.x, self.y, q, kx=3, ky=3)
         self._lncol = CubicSpline(self.x, np.log(col))
         self.midplane = self.surface_density(self.R_nodes) / col    # rho_g(R, 0)
+        cum = cumulative_trapezoid(w, self.z_nodes, axis=1, initial=0)
+        self.column_cdf = cum / cum[:, -1:]     # fraction of each node column below |z|
         rho = self.midplane[:, None] * w
         f_z = cumulative_trapezoid(rho, self.z_nodes, axis=1, initial=0)
         f = cumulative_trapezoid(f_z, self.z_nodes, axis=1, initial=0)
         self._F = RectBivariateSpline(self.x, self.y, f, kx=3, ky=3)
+
+    def analytic_terms(self):
+        return []
+
+    def multipole_density(self):
+        return self.residual_density
+
+    def column_fraction(self, R, z):
+        """Fraction of the column at R (kpc) within |z'| < |z| (kpc): the node columns'
+        fractions, linear in asinh(R/s_R) between them."""
+        x = np.arcsinh(np.minimum(R, self.extent) / self.s_R)
+        k = int(np.clip(np.searchsorted(self.x, x) - 1, 0, self.x.size - 2))
+        t = (x - self.x[k]) / (self.x[k + 1] - self.x[k])
+        at = lambda c: np.interp(np.abs(z), self.z_nodes, self.column_cdf[c], right=1.0)
+        return (1 - t) * at(k) + t * at(k + 1)
+
+    def enclosed_mass(self, r):
+        """Mass (Msun) inside spheres of radius r (kpc): int_0^r 2 pi R Sigma(R)
+        F_R(sqrt(r^2 - R^2)) dR, F_R the column fraction of the hydrostatic layer."""
+        out = []
+        for ri in np.atleast_1d(np.asarray(r, float)):
+            f = lambda R: 2 * np.pi * R * self.surface_density(R) * self.column_fraction(
+                R, np.sqrt(max(ri * ri - R * R, 0.0)))
+            top = min(ri, self.extent)
+            out.append(integrate.quad(f, 0, top, points=[min(self.R_d, top)], limit=200,
+                                      epsrel=1e-8)[0])
+        return np.array(out)
 
     def _coords(self, R, z):
         R, z = np.broadcast_arrays(np.asarray(R, float), np.asarray(z, float))
@@ -106,12 +138,3 @@ class GasDisk(ExponentialDisk):
         with np.errstate(divide="ignore", invalid="ignore"):
             lap = f_zz + f_rr + np.where(r > 0, 2 * f_r / r + 2 * z / r * f_rz, 0.0)
         return self.density(R, z) - lap
-
-
-class _LayerSpec:
-    """The DiskSpec-like view ExponentialDisk needs for the surface density."""
-
-    def __init__(self, spec, z_ref):
-        self.name, self.mass, self.scale_length = spec.name, spec.mass, spec.scale_length
-        self.scale_height, self.vertical = z_ref, "sech2"
-        self.taper_radius, self.taper_width = spec.taper_radius, spec.taper_width

@@ -8,7 +8,6 @@ Binney & Tremaine 2008, eq. 4.222 with the pressure term in place of the velocit
 dispersion); where it is negative, v_phi is clamped to 0 and counted.
 """
 import numpy as np
-from scipy.integrate import cumulative_trapezoid
 
 from .positions import RadialCdf
 
@@ -29,9 +28,7 @@ class GasSampler:
         self.gas, self.potential = gas, potential
         self.radial = RadialCdf(lambda R: 2 * np.pi * R * R * gas.surface_density(R),
                                 1e-6 * gas.R_d, gas.extent)
-        rho = np.exp(-gas.q_nodes)
-        cum = cumulative_trapezoid(rho, gas.z_nodes, axis=1, initial=0)
-        self.cum = cum / cum[:, -1:]
+        self.cum = gas.column_cdf
         self.internal_energy = gas.cs**2 / (gas.gamma - 1)   # (km/s)^2
 
     def heights(self, R, u_z, u_col):

@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..spec import model_warnings
+from .. import defaults
 from ..errors import ModelError, MISSING
 from . import seeds
 from .disk_velocities import DiskVelocities
@@ -65,24 +66,44 @@ class SamplingReport:
         Per disk, the fraction of its sampled mass where vbar_phi^2 < 0 was set to 0.
     timing : dict name -> float
         Seconds spent on the tables ("tables") and on each component's particles.
+    block_sums : dict (component index, block) -> (m, m x (3,), m v (3,))
+        Sums over each whole block made (Msun, Msun kpc, Msun km/s), float64.
     """
     plan: list = field(default_factory=list)
     warnings: list = field(default_factory=list)
     clamped_mass_fraction: dict = field(default_factory=dict)
     timing: dict = field(default_factory=dict)
-    _sums: dict = field(default_factory=dict, repr=False)
+    block_sums: dict = field(default_factory=dict, repr=False)
 
-    def _add(self, name, mass, position, velocity):
-        m, mx, mv = self._sums.get(name, (0.0, np.zeros(3), np.zeros(3)))
-        self._sums[name] = (m + mass.sum(), mx + mass @ position, mv + mass @ velocity)
+    def add_block(self, component, block, mass, position, velocity):
+        """Record the sums of one whole block (float64 arrays, internal units) of the
+        component at index ``component`` in the model file."""
+        key = (int(component), int(block))
+        if key in self.block_sums:
+            raise ValueError(f"block {key[1]} of component {key[0]} recorded twice")
+        self.block_sums[key] = (mass.sum(), mass @ position, mass @ velocity)
+
+    def merge(self, other):
+        """Add the block sums of another report (pieces made by other workers); a block
+        recorded in both is an error."""
+        twice = self.block_sums.keys() & other.block_sums.keys()
+        if twice:
+            raise ValueError(f"blocks {sorted(twice)[:3]} (component, block) recorded twice")
+        self.block_sums.update(other.block_sums)
 
     def center_of_mass(self):
-        """(position (3,) kpc, velocity (3,) km/s) of all particles made so far."""
-        m = sum(s[0] for s in self._sums.values())
+        """(position (3,) kpc, velocity (3,) km/s) of all blocks recorded: per component
+        the blocks added in block order, then the components in model order, so the
+        result does not depend on the order (or the worker) the blocks came from."""
+        sums = {}
+        for (c, _), (m, mx, mv) in sorted(self.block_sums.items(), key=lambda kv: kv[0]):
+            tm, tx, tv = sums.setdefault(c, [0.0, np.zeros(3), np.zeros(3)])
+            sums[c] = [tm + m, tx + mx, tv + mv]
+        m = sum(s[0] for s in sums.values())
         if m == 0:
             return np.zeros(3), np.zeros(3)
-        return (sum(s[1] for s in self._sums.values()) / m,
-                sum(s[2] for s in self._sums.values()) / m)
+        return (sum(s[1] for s in sums.values()) / m,
+                sum(s[2] for s in sums.values()) / m)
 
     def summary(self):
         """Short human-readable lines."""
@@ -238,7 +259,8 @@ def _check_options(chunk_size=1):
         raise ModelError("chunk_size", chunk_size, "must be a whole number >= 1")
 
 
-def iter_chunks(model, chunk_size=262144, quiet_start=None, mirror=None, report=None):
+def iter_chunks(model, chunk_size=defaults.CHUNK_PARTICLES, quiet_start=None, mirror=None,
+                report=None):
     """Yield ParticleChunk objects component by component, in model-file order.
 
     Parameters
@@ -286,7 +308,7 @@ def _component_chunks(model, cplan, chunk_size, quiet_start, mirror, report):
         t0 = time.perf_counter()
         columns, nc = _block(model, cplan, b, quiet_start, mirror)
         busy += time.perf_counter() - t0      # time spent by the consumer is not ours
-        report._add(cplan.name, columns[2], columns[0], columns[1])
+        report.add_block(cplan.index, b, columns[2], columns[0], columns[1])
         clamped += nc
         buf.append(columns)
         held += columns[2].size

@@ -3,7 +3,7 @@
 Every particle of a component belongs to a fixed-size block of ``BLOCK_SIZE`` particles.
 The deviates of a block depend only on (model seed, component index, block index), never
 on the chunk size, on the order in which blocks are made or on the number of threads:
-that is what makes a chunk an independent unit of work (DESIGN.md, section 7).
+that is what makes a chunk an independent unit of work.
 
 Pseudo-random streams use ``numpy.random.SeedSequence(seed, spawn_key=(component, block))``
 with PCG64. The quiet start uses a Sobol sequence (Sobol 1967, USSR Comput. Math. Math.
