@@ -20,7 +20,7 @@ import warnings
 
 import numpy as np
 
-from icgen import config, sampling
+from icgen import sampling, spec
 from icgen.diagnostics.drift import run_drift
 from icgen.integrate import pericentre
 from icgen.model import MassModel
@@ -67,7 +67,7 @@ def inner_orbits(model, halo):
 def run(velocities, periods, n_halo):
     text = GALAXY.format(velocities=velocities).replace("particles = 200_000",
                                                         f"particles = {n_halo}")
-    model = MassModel(config.spec_from_toml_text(text))
+    model = MassModel(spec.spec_from_toml_text(text))
     R = 2.2 * model.components["disk"].R_d
     period = 2 * np.pi * R / float(model.circular_speed(R)) * TIME_UNIT_GYR
     with warnings.catch_warnings():

@@ -62,7 +62,7 @@ def galaxy(path, tracer):
         from icgen.snapshot import load_model_from_snapshot
         return path, load_model_from_snapshot(path)      # rebuilt once, not per observation
     from icgen import load_model
-    from icgen.config import load_dict
+    from icgen.spec import load_dict
     from icgen.sampling import sample
 
     data = load_dict(CONFIG)

@@ -27,7 +27,7 @@ import numpy as np
 
 from . import defaults, sampling
 from .sampling import realize
-from .config import ModelSpec
+from .spec import ModelSpec
 from .errors import ModelError
 from .paths import check_target, format_bytes
 from .progress import progress_enabled, stage_bar
@@ -229,7 +229,7 @@ def build_snapshot(model, path, *, seed=None, overwrite=False, precision="double
 
     Parameters
     ----------
-    model : icgen.config.ModelSpec or icgen.model.MassModel
+    model : icgen.spec.ModelSpec or icgen.model.MassModel
     path : str or PathLike
         Target file; its folder must exist.
     seed : int, optional

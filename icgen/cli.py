@@ -252,13 +252,13 @@ def cmd_curve(args):
     from .diagnostics import curve
     from .model import MassModel
     from .units import parse_quantity
-    from . import config
+    from .spec import load_spec
     import astropy.units as u
 
     targets = _targets(args, ("table", "plot"), [args.model])
     if args.points < 2:
         raise ModelError("--points", args.points, "must be at least 2")
-    model = MassModel(config.load_spec(args.model))
+    model = MassModel(load_spec(args.model))
     radii = None
     if args.radii:
         radii = [parse_quantity(s.strip(), "--radii", u.kpc) for s in args.radii.split(",")]
@@ -313,7 +313,7 @@ def _curve_report(model, table, s):
 
 
 def cmd_new(args):
-    from .default_model import STARTER_TOML
+    from .spec.default_model import STARTER_TOML
     target = paths.check_target(args.path, "path", overwrite=args.overwrite)
     with paths.replacing(target) as tmp:
         with open(tmp, "w", encoding="utf-8") as fh:
@@ -323,14 +323,14 @@ def cmd_new(args):
 
 
 def cmd_build(args):
-    from . import config
+    from .spec import load_spec
     from .build import BuildInterrupted, build_snapshot, check_output_path
     from .snapshot import NonFiniteError
 
     # before the model is even read
     target = check_output_path(args.output, args.overwrite, inputs=[args.model])
     _stale_temporary_files(os.path.dirname(target), args.remove_stale)
-    spec = config.load_spec(args.model)
+    spec = load_spec(args.model)
     options = {} if args.chunk_size is None else {"chunk_size": args.chunk_size}
     try:
         result = build_snapshot(spec, args.output, seed=args.seed, overwrite=args.overwrite,
@@ -381,13 +381,13 @@ def is_snapshot_path(path):
 
 def _model_or_snapshot(source):
     """MassModel of a model file (TOML), the default model (None) or a snapshot."""
-    from . import config
+    from .spec import load_spec
     from .model import MassModel
     from .snapshot import load_model_from_snapshot
 
     if source is not None and is_snapshot_path(source):
         return load_model_from_snapshot(source)
-    return MassModel(config.load_spec(source))
+    return MassModel(load_spec(source))
 
 
 def cmd_stability(args):

@@ -9,9 +9,9 @@ This is the notebook-facing entry point::
 """
 import numpy as np
 
-from . import config
 from .kinds import KINDS, kind_of
 from .potential import CombinedPotential
+from .spec import load_dict, load_spec, spec_from_dict
 
 #: Points of the model's rotation curve (the one stored in every snapshot).
 CURVE_POINTS = 120
@@ -25,7 +25,7 @@ class MassModel:
 
     Attributes
     ----------
-    spec : config.ModelSpec
+    spec : icgen.spec.ModelSpec
     components : dict name -> profile object, in model-file order
     potential : CombinedPotential
     gas_solution : the iteration record of the gas layers (None without gas)
@@ -136,7 +136,7 @@ def load_model(source=None, **overrides):
     ``load_model(components={...})``.
     """
     if isinstance(source, dict) or overrides:
-        base = source if isinstance(source, dict) else config.load_dict(source)
+        base = source if isinstance(source, dict) else load_dict(source)
         data = {**base, **overrides}
-        return MassModel(config.spec_from_dict(data))
-    return MassModel(config.load_spec(source))
+        return MassModel(spec_from_dict(data))
+    return MassModel(load_spec(source))

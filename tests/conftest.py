@@ -20,7 +20,7 @@ def pytest_collection_modifyitems(config, items):
 def model_from_components(components, **model_keys):
     """MassModel from component tables written as in a model file (strings with units)."""
     from icgen.model import MassModel
-    from icgen.config import spec_from_dict
+    from icgen.spec import spec_from_dict
     data = {"model": {"name": "test model", "seed": 1, **model_keys}, "components": components}
     return MassModel(spec_from_dict(data))
 
@@ -29,7 +29,7 @@ def model_from_components(components, **model_keys):
 def default_model():
     """The built-in default model (potential built once per test session)."""
     from icgen.model import MassModel
-    from icgen.config import load_spec
+    from icgen.spec import load_spec
     return MassModel(load_spec(None))
 
 
@@ -38,7 +38,7 @@ def uncut_mass(profile, scale=1.0, mass=1e10, outer=5000.0):
     (Msun, cut at ``outer`` kpc, scale ``scale`` kpc) has inside its outer radius:
     2 pi rho0 a^3 (Hernquist 1990, eq. 2) or 4 pi rho0 b^3 / 3 (Plummer 1911). With the far
     cut at 5000 a, M = mass (1 + 1.6e-4) for Hernquist."""
-    from icgen.config import SpheroidSpec
+    from icgen.spec import SpheroidSpec
     from icgen.profiles.spheroid import finite_law
     spec = SpheroidSpec(name="b", kind="bulge", profile=profile, mass=mass, scale_radius=scale,
                         outer_radius=outer)

@@ -21,7 +21,7 @@ import pytest
 import icgen
 from icgen import sampling
 from icgen.cli import main
-from icgen.config import load_spec
+from icgen.spec import load_spec
 from icgen.model import MassModel
 from icgen.progress import progress_enabled
 from icgen.snapshot import load_model_from_snapshot, read_snapshot

@@ -175,7 +175,7 @@ SMALL = {
 def small_snapshot(tmp_path_factory):
     """The default model with 1e5 particles in all (same shape, fewer particles)."""
     from icgen.build import build_snapshot
-    from icgen.config import spec_from_dict
+    from icgen.spec import spec_from_dict
     path = tmp_path_factory.mktemp("snap") / "small.h5"
     build_snapshot(spec_from_dict(SMALL), path, quiet=True)
     return path
@@ -291,7 +291,7 @@ def test_check_bad_input_exit_2(tmp_path, capsys):
 def test_full_size_default_model_passes(tmp_path, capsys):
     # The built-in default model at its full particle numbers: every row within 5 errors.
     from icgen.build import build_snapshot
-    from icgen.config import load_spec
+    from icgen.spec import load_spec
     path = tmp_path / "default.h5"
     build_snapshot(load_spec(None), path, quiet=True)
     status, data, failed = run_check(path, tmp_path, capsys)

@@ -4,7 +4,7 @@ import pytest
 from astropy.table import QTable
 
 from icgen.cli import main
-from icgen.config import load_spec
+from icgen.spec import load_spec
 from icgen.units import G
 
 

@@ -55,7 +55,7 @@ def halo_model(folder, particles="30_000", output="", name="halo.toml"):
 
 def estimate(model, count=30_000, precision="double", compress=None):
     """The writer's size estimate (bytes) for a one-component model file."""
-    from icgen.config import load_spec
+    from icgen.spec import load_spec
 
     plans = [namedtuple("P", "name kind count")("halo", "halo", count)]
     return snapshot.estimate_file_size(plans, precision, compress,
@@ -79,7 +79,7 @@ def no_work(monkeypatch):
 def tiny_snapshot(tmp_path_factory):
     """A small snapshot with a disk (for check, stability, mock, drift)."""
     from icgen.build import build_snapshot
-    from icgen.config import spec_from_dict
+    from icgen.spec import spec_from_dict
 
     spec = spec_from_dict({"model": {"name": "tiny", "seed": 3}, "components": {
         "halo": {"kind": "halo", "profile": "hernquist", "mass": "5e11 Msun",
@@ -382,9 +382,9 @@ def test_build_reports_a_killed_builds_file_and_removes_it_on_request(tmp_path, 
 
 
 @pytest.mark.parametrize("argv, where", [
-    (["curve"], "icgen.config.load_spec"),
-    (["stability"], "icgen.config.load_spec"),
-    (["build", "-o", "x.h5"], "icgen.config.load_spec"),
+    (["curve"], "icgen.spec.load_spec"),
+    (["stability"], "icgen.spec.load_spec"),
+    (["build", "-o", "x.h5"], "icgen.spec.load_spec"),
     (["new", "x.toml"], "icgen.paths.check_target"),
     (["info", "x.h5"], "icgen.snapshot.describe"),
 ])
@@ -502,7 +502,7 @@ def test_units_that_overflow_are_refused_before_any_work(tmp_path, monkeypatch, 
 
 
 def test_every_float_attribute_is_checked_before_the_rename(tmp_path):
-    from icgen.config import spec_from_toml_text
+    from icgen.spec import spec_from_toml_text
 
     spec = spec_from_toml_text(HALO.format(particles=10, output=""))
     plans = [namedtuple("P", "name kind count")("halo", "halo", 10)]

@@ -473,7 +473,7 @@ def snapshots(tmp_path_factory):
     """An icgen snapshot of a small galaxy and a copy whose disk velocities are x 0.9."""
     import warnings
     from icgen.build import build_snapshot
-    from icgen.config import spec_from_dict
+    from icgen.spec import spec_from_dict
     folder = tmp_path_factory.mktemp("drift")
     good, slow = str(folder / "galaxy.h5"), str(folder / "slow_disk.h5")
     spec = spec_from_dict({"model": {"name": "drift test galaxy", "seed": 5},

@@ -12,7 +12,7 @@ from conftest import model_from_components
 from icgen import read_snapshot
 from icgen.build import build_snapshot
 from icgen.cli import main
-from icgen.config import spec_from_dict
+from icgen.spec import spec_from_dict
 from icgen.diagnostics import check
 from icgen.frame import find_frame, galaxy_frame
 from icgen.mock import Geometry, Instrument, observe
@@ -169,7 +169,7 @@ def test_hernquist_sphere_about_the_origin_follows_hernquist(tmp_path):
 def test_default_model_extent_and_momentum(tmp_path):
     # The built-in default model: no particle beyond 100 times its component's median
     # radius (3400 for the bulge before the cut), net momentum < 0.01 km/s.
-    from icgen.config import load_spec
+    from icgen.spec import load_spec
     path = tmp_path / "default.h5"
     build_snapshot(load_spec(None), path)
     snap = read_snapshot(path)

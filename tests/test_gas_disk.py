@@ -6,7 +6,7 @@ import pytest
 from scipy import integrate, stats
 
 from conftest import model_from_components
-from icgen.config import load_spec
+from icgen.spec import load_spec
 from icgen.errors import ModelError
 from icgen.model import MassModel
 from icgen.sampling.gas import GasSampler, gas_rotation
@@ -172,7 +172,7 @@ def test_gas_disk_around_a_black_hole(tmp_path, gas_model):
     # ~0.03 kpc, 2e-5 of the gas mass, the balance is off by up to ~90 % (measured).
     import tomllib
     from icgen import cli
-    from icgen.config import spec_from_dict
+    from icgen.spec import spec_from_dict
     with open(CONFIG, "rb") as fh:
         data = tomllib.load(fh)
     data["components"]["bh"] = {"kind": "point_mass", "mass": "4e7 Msun"}

@@ -223,7 +223,7 @@ def test_gas_tracer_lines_have_the_sound_speed():
     import os
     import warnings
     from icgen import load_model
-    from icgen.config import load_dict
+    from icgen.spec import load_dict
     from icgen.mock.observation import line_widths, tracer_particles
     from icgen.sampling import sample
 

@@ -14,8 +14,8 @@ import pytest
 
 from conftest import model_from_components
 from reference.eddington_cut import min_df_ratio
-from icgen import cli, config
-from icgen.config import spec_from_dict
+from icgen import cli, spec
+from icgen.spec import spec_from_dict, spheroid
 from icgen.errors import ModelError
 
 HALO = {"kind": "halo", "profile": "nfw", "mass": "1e12 Msun", "concentration": 10,
@@ -192,8 +192,8 @@ def test_cold_disk_is_built_with_a_warning(tmp_path):
     assert status == 0
     assert "icgen: warning: disk 'disk': toomre_q = 0.01 is below 1: locally unstable" in err
     cold = {k: v for k, v in DISK.items() if k != "toomre_q"} | {"toomre_q_min": 0.5}
-    assert len(config.model_warnings(spec_from_dict({"components": {"disk": cold}}))) == 1
-    assert config.model_warnings(spec_from_dict({"components": {"disk": DISK}})) == []
+    assert len(spec.model_warnings(spec_from_dict({"components": {"disk": cold}}))) == 1
+    assert spec.model_warnings(spec_from_dict({"components": {"disk": DISK}})) == []
 
 
 def test_model_name_length_is_limited(tmp_path):
@@ -209,12 +209,12 @@ def test_model_name_length_is_limited(tmp_path):
 def test_large_files_and_many_components_are_refused_early(tmp_path):
     big = tmp_path / "big.toml"
     big.write_text("[model]\n" + "".join(f"k{i} = 1\n" for i in range(150_000)))
-    assert big.stat().st_size > config.MAX_MODEL_BYTES
+    assert big.stat().st_size > spec.MAX_MODEL_BYTES
     status, _, err = run("build", big, "-o", tmp_path / "x.h5")
     assert status == 2 and len(err.strip().splitlines()) == 1
     assert "at most 1 MB" in err and not (tmp_path / "x.h5").exists()
     with pytest.raises(ModelError, match="at most 1 MB"):
-        config.spec_from_toml_text("#" * (config.MAX_MODEL_BYTES + 1))
+        spec.spec_from_toml_text("#" * (spec.MAX_MODEL_BYTES + 1))
     # many components: refused before any is read
     comps = {f"c{i}": {"kind": "point_mass", "mass": "1 Msun"} for i in range(10_000)}
     with pytest.raises(ModelError, match="the model has 10000 components; at most 64"):
@@ -240,10 +240,10 @@ def test_huge_values_are_shown_short():
 @pytest.mark.parametrize("profile, ratio", [("nfw", 10.0), ("pseudo_isothermal", 10.0),
                                             ("burkert", 2.0)])
 def test_truncation_limit_is_where_the_isotropic_df_turns_negative(profile, ratio):
-    # The table in config.py, checked again: Eddington's formula (Binney & Tremaine 2008,
-    # eq. 4.46) for a halo in its own potential, on a grid that resolves the cut, is
-    # negative at E = Psi(r_t) for a decay length 10 % shorter than the measured limit and
-    # positive 10 % above it.
-    limit = config._min_cut_fraction(profile, ratio) / config._CUT_MARGIN
+    # The table in icgen/spec/spheroid.py, checked again: Eddington's formula (Binney &
+    # Tremaine 2008, eq. 4.46) for a halo in its own potential, on a grid that resolves the
+    # cut, is negative at E = Psi(r_t) for a decay length 10 % shorter than the measured
+    # limit and positive 10 % above it.
+    limit = spheroid.min_cut_fraction(profile, ratio) / spheroid.CUT_MARGIN
     assert min_df_ratio(profile, ratio, 0.9 * limit) < 0
     assert min_df_ratio(profile, ratio, 1.1 * limit) > 0

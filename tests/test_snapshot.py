@@ -15,7 +15,7 @@ import h5py
 import numpy as np
 import pytest
 
-from icgen.config import spec_from_dict, spec_from_toml_text
+from icgen.spec import spec_from_dict, spec_from_toml_text
 from icgen.errors import ModelError
 from icgen.sampling import ParticleChunk
 from icgen.snapshot import (FileUnits, NonFiniteError, SnapshotWriter, check_output_units,

@@ -51,7 +51,7 @@ def libraries():
 
 def build(case, folder):
     from icgen.build import build_snapshot
-    from icgen.config import load_dict, spec_from_dict
+    from icgen.spec import load_dict, spec_from_dict
     path, precision, overrides = cases()[case]
     data = load_dict(path)
     data.setdefault("model", {}).update(overrides)

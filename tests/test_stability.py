@@ -177,7 +177,7 @@ def test_cli_stability_prints_verdicts_and_writes_json_and_png(tmp_path, capsys)
 
 def test_cli_stability_reads_the_model_stored_in_a_snapshot(tmp_path, capsys):
     from icgen.build import build_snapshot
-    from icgen.config import spec_from_dict
+    from icgen.spec import spec_from_dict
     comps = {"halo": {"kind": "halo", "profile": "hernquist", "mass": "5e11 Msun",
                       "scale_radius": "20 kpc", "particles": 2000},
              "disk": {"kind": "disk", "mass": "4e10 Msun", "scale_length": "3 kpc",
@@ -220,7 +220,7 @@ def test_gas_q_and_two_component_criterion_by_hand():
 def test_stability_report_of_gas_rich_model():
     from icgen.diagnostics.stability import analyse
     from icgen.model import MassModel
-    from icgen.config import load_spec
+    from icgen.spec import load_spec
     rep = analyse(MassModel(load_spec("configs/gas_rich_spiral.toml")))
     (g,) = rep.gas
     # the combined disk is less stable than either component alone

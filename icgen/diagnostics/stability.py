@@ -447,7 +447,7 @@ def load_source(source):
 
     import h5py
 
-    from ..config import load_spec
+    from ..spec import load_spec
     from ..model import MassModel
     # an HDF5 file, or a file named as one (so that a damaged snapshot gets the
     # snapshot reader's error, not the TOML parser's)

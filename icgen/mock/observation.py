@@ -177,7 +177,7 @@ def tracer_particles(source, tracer, model=None):
     if isinstance(source, Snapshot):
         _check_tracer(tracer, {n: c["kind"] for n, c in source.components.items()})
         if model is None:      # built only once the tracer is known to be good
-            from ..config import spec_from_toml_text
+            from ..spec import spec_from_toml_text
             from ..model import MassModel
             model = MassModel(spec_from_toml_text(source.config, source=f"{source.path}:config"))
         comps, frame = source.internal(), source.frame

@@ -28,6 +28,11 @@ import numpy as np
 from scipy import integrate, optimize
 
 from .. import defaults
+from ..spec.spheroid import (
+    HERNQUIST_HALF_MASS_X,
+    PLUMMER_HALF_MASS_X,
+    default_outer_radius,
+)
 from ..units import critical_density
 
 # Kernel code of the point mass's closed-form potential (see potential/kernels.py).
@@ -76,7 +81,7 @@ HERNQUIST_LAW = InnerLaw(
     mass=lambda x: 0.5 * x * x / (1 + x) ** 2,
     slope=lambda x: -1 - 3 * x / (1 + x),
     curvature=lambda x: -3 * x / (1 + x) ** 2,
-    half_mass_x=1 + np.sqrt(2.0))
+    half_mass_x=HERNQUIST_HALF_MASS_X)
 # Plummer (1911, MNRAS 71, 460): rho = 3M/(4 pi b^3) (1 + x^2)^(-5/2), M(r) = M x^3/(1+x^2)^1.5;
 # half-mass radius b / sqrt(2^(2/3) - 1).
 PLUMMER_LAW = InnerLaw(
@@ -84,20 +89,14 @@ PLUMMER_LAW = InnerLaw(
     mass=lambda x: x**3 / (3 * (1 + x * x) ** 1.5),
     slope=lambda x: -5 * x * x / (1 + x * x),
     curvature=lambda x: -10 * x * x / (1 + x * x) ** 2,
-    half_mass_x=1.0 / np.sqrt(2.0 ** (2.0 / 3.0) - 1.0))
+    half_mass_x=PLUMMER_HALF_MASS_X)
 
 INNER_LAWS = {"nfw": NFW_LAW, "pseudo_isothermal": ISO_LAW, "burkert": BURKERT_LAW,
               "hernquist": HERNQUIST_LAW, "plummer": PLUMMER_LAW}
 
-# The cut of a law of finite mass (Hernquist, Plummer) starts, by default, at this many
-# half-mass radii of the uncut law: 72.4 a for Hernquist (which holds 97.3 % of its mass
-# inside; the cut adds back 0.7 %, so rho0 is 1.95 % above that of an uncut sphere of the
-# same mass), 39.1 b for Plummer (99.90 %). With the decay length r_d = 0.1 r_t the
-# farthest of N particles then lies at 80 (N = 1e6) to 100 (N = 1e8) median radii for
-# Hernquist, 62 to 82 for Plummer (the 1 - 1/N quantile of the sampled CDF, measured); an
-# uncut Hernquist sphere of 5e4 particles put its farthest at 3400 median radii.
-DEFAULT_CUT_HALF_MASS_RADII = 30.0
-# The cut is integrated to r_t + OUTER_SPAN r_d, and the density sampled to
+# The cut of a law of finite mass (Hernquist, Plummer) starts by default at
+# default_outer_radius (icgen/spec/spheroid.py: the model-file rules of the cut need it
+# too). The cut is integrated to r_t + OUTER_SPAN r_d, and the density sampled to
 # r_t + EXTENT_SPAN r_d: the taper there is < 1e-13 of rho(r_t) for every law.
 OUTER_SPAN = 60.0
 EXTENT_SPAN = 40.0
@@ -229,12 +228,6 @@ def nfw_from_density(rho_s, r_s, rho_crit):
 
 def _decay_length(spec, r_t):
     return spec.truncation_width or defaults.TRUNCATION_DECAY_FRACTION * r_t
-
-
-def default_outer_radius(profile, scale_radius):
-    """Default outer radius (kpc) of a law of finite mass: DEFAULT_CUT_HALF_MASS_RADII
-    half-mass radii of the uncut law."""
-    return DEFAULT_CUT_HALF_MASS_RADII * INNER_LAWS[profile].half_mass_x * scale_radius
 
 
 def finite_law(spec):

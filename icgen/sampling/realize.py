@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..config import model_warnings
+from ..spec import model_warnings
 from .. import defaults
 from ..errors import ModelError, MISSING
 from ..kinds import kind_of

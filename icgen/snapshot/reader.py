@@ -40,7 +40,7 @@ class SnapshotFile:
     components : dict name -> ComponentInfo, in model-file order
     file_units : icgen.snapshot.schema.FileUnits
         The file's units and their conversion to internal units.
-    spec : icgen.config.ModelSpec
+    spec : icgen.spec.ModelSpec
         The model parsed from ``config``.
     """
 

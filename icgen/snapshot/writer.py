@@ -157,7 +157,7 @@ class SnapshotWriter:
     ----------
     path : str or PathLike
         Target file.
-    spec : icgen.config.ModelSpec
+    spec : icgen.spec.ModelSpec
         The resolved model: its ``output`` units, ``seed`` and ``to_toml()`` are stored.
     plans : sequence
         Per component, in file order, objects with ``name``, ``kind`` and ``count``

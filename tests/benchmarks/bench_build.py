@@ -27,7 +27,7 @@ BYTES_PER_PARTICLE = 8 * 3 + 8 * 3 + 8 + 8
 def scaled_spec(n_total):
     """The built-in default model with its particle counts scaled to ``n_total``."""
     import dataclasses
-    from icgen.config import load_spec
+    from icgen.spec import load_spec
     spec = load_spec(None)
     total = sum(c.particles for c in spec.components)
     comps = tuple(dataclasses.replace(c, particles=max(1, round(c.particles * n_total / total)))

@@ -29,7 +29,7 @@ N_PARTICLES = 1_000_000
 
 def default_spec(total):
     """The built-in default model with its particle numbers scaled to ``total`` in all."""
-    from icgen.config import load_dict, spec_from_dict
+    from icgen.spec import load_dict, spec_from_dict
     data = load_dict(None)
     comps = data["components"].values()
     scale = total / sum(c["particles"] for c in comps)

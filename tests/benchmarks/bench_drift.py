@@ -22,11 +22,11 @@ def main():
     gyr = float(sys.argv[2]) if len(sys.argv) > 2 else 1.0
     import numba
     import icgen
-    from icgen import config, sampling
+    from icgen import sampling, spec
     from icgen.diagnostics.drift import run_drift, subsample
     from icgen.model import load_model
 
-    data = config.load_dict(None)                      # the default model, scaled to n
+    data = spec.load_dict(None)                        # the default model, scaled to n
     total = sum(c["particles"] for c in data["components"].values())
     for c in data["components"].values():
         c["particles"] = max(int(round(c["particles"] * n / total)), 1)

@@ -37,7 +37,7 @@ def first_compile_seconds():
 def main():
     import icgen
     from icgen.model import MassModel
-    from icgen.config import load_spec
+    from icgen.spec import load_spec
     spec = load_spec(None)
     MassModel(spec)                                  # warm numba caches
     t_build = best_of(lambda: MassModel(spec))

@@ -16,7 +16,7 @@ import numpy as np
 
 def model_with(total, spec_dict):
     """MassModel of the default galaxy with ``total`` particles in the 6:3:1 split."""
-    from icgen.config import spec_from_dict
+    from icgen.spec import spec_from_dict
     from icgen.model import MassModel
     data = {k: (dict(v) if isinstance(v, dict) else v) for k, v in spec_dict.items()}
     comps = {name: dict(c) for name, c in data["components"].items()}
@@ -53,7 +53,7 @@ def baseline(n):
 
 def main(argv):
     import numba
-    from icgen.config import load_dict
+    from icgen.spec import load_dict
     spec_dict = load_dict(None)
     sizes = [100_000] if "--quick" in argv else [1_000_000, 2_000_000, 4_000_000]
     print(f"numba threads: {numba.get_num_threads()}")

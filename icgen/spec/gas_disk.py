@@ -1,8 +1,8 @@
 """Model-file spec of an isothermal gas disk (``kind = "gas_disk"``).
 
-Kept apart from config.py (which holds the stellar and spheroid specs) to keep modules small;
-config.py registers it as a component kind.
+Masses Msun, lengths kpc, temperature K, sound speed km/s.
 """
+
 import math
 from dataclasses import dataclass
 
@@ -10,6 +10,9 @@ import astropy.constants as const
 import astropy.units as u
 
 from icgen.errors import MISSING, ModelError
+
+from .disk import check_taper
+from .fields import component_prefix, validate_fields
 
 #: Mean molecular weight of neutral gas of primordial composition, mu = 1/(X + Y/4) with
 #: hydrogen mass fraction X = 0.76, Y = 0.24 (common practice; X from big-bang
@@ -49,26 +52,19 @@ class GasDiskSpec:
     adiabatic_index: float = 5.0 / 3.0
     particles: int | None = None
 
+    @classmethod
+    def table_keys(cls, prefix, table):
+        """(allowed, required) keys of a gas disk's model-file table."""
+        return GAS_KEYS, ("mass", "scale_length")
+
     def __post_init__(self):
-        from icgen import config as c
-        c._check_component_name(self.name)
-        p = f"components.{self.name}."
-        c._choice(p + "kind", self.kind, ("gas_disk",))
-        c._choice(p + "profile", self.profile, ("exponential",))
-        c._set(self, "mass", c._value(p, "mass", self.mass))
-        rd = c._value(p, "scale_length", self.scale_length)
-        c._set(self, "scale_length", rd)
-        c.DiskSpec._check_taper(self, p, rd)
+        p = component_prefix(self, ("gas_disk",), ("exponential",))
         given = [k for k in ("temperature", "sound_speed") if getattr(self, k) is not None]
         if len(given) != 1:
             rule = "give exactly one of temperature (e.g. '8000 K') or sound_speed (e.g. '10 km/s')"
             raise ModelError(p + "temperature", MISSING if not given else self.temperature, rule)
-        c._set(self, given[0], c._value(p, given[0], getattr(self, given[0])))
-        c._set(self, "mean_molecular_weight",
-               c._value(p, "mean_molecular_weight", self.mean_molecular_weight))
-        c._set(self, "adiabatic_index", c._value(p, "adiabatic_index", self.adiabatic_index))
-        if self.particles is not None:
-            c._set(self, "particles", c._value(p, "particles", self.particles))
+        validate_fields(self, p)
+        check_taper(self, p, self.scale_length)
 
     @property
     def sound_speed_key(self):
