@@ -23,6 +23,7 @@ import sys
 from contextlib import contextmanager
 
 from . import __version__, paths
+from .cli_options import parse_number, parse_positive, parse_time, parse_whole
 from .errors import ModelError
 
 #: Exit status for an output that could not be written (EX_IOERR, BSD sysexits.h).
@@ -251,7 +252,6 @@ def cmd_curve(args):
     import numpy as np
     from .diagnostics import curve
     from .model import MassModel
-    from .units import parse_quantity
     from .spec import load_spec
     import astropy.units as u
 
@@ -261,14 +261,10 @@ def cmd_curve(args):
     model = MassModel(load_spec(args.model))
     radii = None
     if args.radii:
-        radii = [parse_quantity(s.strip(), "--radii", u.kpc) for s in args.radii.split(",")]
-        if any(r <= 0 for r in radii):
-            raise ModelError("--radii", args.radii, "radii must be positive")
+        radii = [parse_positive(s.strip(), "--radii", u.kpc) for s in args.radii.split(",")]
     r_out = curve.default_radii(model)[-1]
     if args.rmax:
-        r_out = parse_quantity(args.rmax, "--rmax", u.kpc)
-        if r_out <= 0:
-            raise ModelError("--rmax", args.rmax, "must be positive")
+        r_out = parse_positive(args.rmax, "--rmax", u.kpc)
     summary = curve.summarize(model, radii, r_search=r_out if args.rmax else None)
     if not args.quiet:
         shown = curve.rotation_curve(model, np.linspace(r_out / args.points, r_out, args.points))
@@ -412,7 +408,6 @@ def cmd_stability(args):
 
 def cmd_check(args):
     from .diagnostics import check
-    from .units import parse_quantity
     import astropy.units as u
 
     import math
@@ -424,9 +419,7 @@ def cmd_check(args):
                                                     "standard errors, e.g. 5")
         options["n_sigma"] = args.sigma
     if args.softening:
-        options["softening"] = parse_quantity(args.softening, "--softening", u.kpc)
-        if options["softening"] <= 0:
-            raise ModelError("--softening", args.softening, "must be positive")
+        options["softening"] = parse_positive(args.softening, "--softening", u.kpc)
     if args.sources is not None:
         if args.sources < 100:
             raise ModelError("--sources", args.sources, "must be at least 100")
@@ -462,21 +455,24 @@ def cmd_mock(args):
 
 def cmd_drift(args):
     from .diagnostics import drift
+    from .diagnostics.drift_report import format_report, write_report
 
-    options = {"sample": drift.parse_whole(args.sample, "--sample", 1),
-               "seed": drift.parse_whole(args.seed, "--seed", 0),
-               "outputs": drift.parse_whole(args.outputs, "--outputs", 1, drift.OUTPUTS),
-               "threshold": drift.parse_number(args.threshold, "--threshold", drift.THRESHOLD)}
+    duration = parse_time(args.time, "--time", 0.0, drift.MAX_TIME_GYR)
+    step = parse_time(args.step, "--step", drift.MIN_STEP_GYR, drift.MAX_TIME_GYR)
+    if step is not None and step > duration:
+        raise ModelError("--step", args.step, f"is longer than --time ({duration:g} Gyr)")
+    options = {"sample": parse_whole(args.sample, "--sample", 1),
+               "seed": parse_whole(args.seed, "--seed", 0),
+               "outputs": parse_whole(args.outputs, "--outputs", 1, drift.OUTPUTS),
+               "threshold": parse_number(args.threshold, "--threshold", drift.THRESHOLD)}
     if args.report:
-        drift.check_report_dir(args.report)
         paths.check_folder_target(args.report, "--report", ("drift.json", "drift.png"),
                                   inputs=[args.path])
-    result = drift.drift_snapshot(args.path, args.time, step=args.step, quiet=args.quiet,
-                                  **options)
+    result = drift.drift_snapshot(args.path, duration, step=step, quiet=args.quiet, **options)
     if not args.quiet:
-        print(drift.format_report(result, all_rows=args.all))
+        print(format_report(result, all_rows=args.all))
     if args.report:
-        for path in drift.write_report(result, args.report):
+        for path in write_report(result, args.report):
             if not args.quiet:
                 print(f"wrote {path}")
     return result.exit_status

@@ -22,6 +22,7 @@ Units: kpc, km/s, (km/s)^2/kpc, time in kpc/(km/s) (= 0.97779 Gyr, icgen.units).
 """
 import math
 from concurrent.futures import ThreadPoolExecutor
+from typing import Protocol, runtime_checkable
 
 import numba
 import numpy as np
@@ -29,8 +30,46 @@ from numba import njit, prange
 
 from .potential.field import NO_FIELD, force
 
-__all__ = ["leapfrog", "specific_energy", "angular_momentum_z", "pericentre", "substeps",
-           "Orbits"]
+__all__ = ["Integrator", "leapfrog", "specific_energy", "pericentre", "substeps", "Orbits"]
+
+
+@runtime_checkable
+class Integrator(Protocol):
+    """What a run that follows particles in time needs from their integrator.
+
+    :class:`Orbits` (test particles in a frozen potential) is one; a self-gravitating
+    integrator can be another. Arrays are fresh copies in the original particle order;
+    kpc, km/s, time in kpc/(km/s).
+
+    Attributes
+    ----------
+    steps_taken : int
+        Particle steps taken so far (summed over the particles).
+    force_calls : int
+        Force evaluations made outside the compiled kernel so far.
+    """
+
+    steps_taken: int
+    force_calls: int
+
+    def __len__(self) -> int:
+        """Number of particles N."""
+
+    def advance(self, interval: float) -> None:
+        """Advance every particle by ``interval``; positions and velocities are then
+        synchronous."""
+
+    def positions(self) -> np.ndarray:
+        """(N, 3) positions, kpc."""
+
+    def velocities(self) -> np.ndarray:
+        """(N, 3) velocities, km/s."""
+
+    def energies(self) -> np.ndarray:
+        """(N,) specific energies v^2/2 + Phi, (km/s)^2."""
+
+    def nonfinite(self) -> int:
+        """Number of particles whose position or velocity is NaN or infinite."""
 
 
 @njit(cache=True, parallel=True)
@@ -38,13 +77,6 @@ def specific_energy(vx, vy, vz, phi, out):
     """out = (vx^2 + vy^2 + vz^2)/2 + Phi, (km/s)^2 (in place)."""
     for i in prange(vx.shape[0]):
         out[i] = 0.5 * (vx[i] * vx[i] + vy[i] * vy[i] + vz[i] * vz[i]) + phi[i]
-
-
-@njit(cache=True, parallel=True)
-def angular_momentum_z(x, y, vx, vy, out):
-    """out = x v_y - y v_x, kpc km/s (in place)."""
-    for i in prange(x.shape[0]):
-        out[i] = x[i] * vy[i] - y[i] * vx[i]
 
 
 @njit(cache=True)
@@ -170,7 +202,8 @@ def substeps(interval, timescale, accuracy, max_level):
 
 
 class Orbits:
-    """Positions and velocities of N test particles and their leapfrog in a frozen potential.
+    """Positions and velocities of N test particles and their leapfrog in a frozen
+    potential: an :class:`Integrator`.
 
     Parameters
     ----------
@@ -264,28 +297,22 @@ class Orbits:
             bad |= ~np.isfinite(a)
         return int(np.count_nonzero(bad))
 
-    def energy(self):
-        """Specific energy E = v^2/2 + Phi per particle, (km/s)^2, sorted order."""
+    def _unsorted(self, a):
+        """Per-particle values ``a`` of the sorted state, in the input order."""
+        out = np.empty_like(a)
+        out[self.order] = a
+        return out
+
+    def energies(self):
+        """(N,) specific energies E = v^2/2 + Phi, (km/s)^2, input order."""
         out = np.empty_like(self.x)
         specific_energy(self.vx, self.vy, self.vz, self._phi, out)
-        return out
+        return self._unsorted(out)
 
-    def lz(self):
-        """Specific angular momentum about the z axis per particle, kpc km/s, sorted order."""
-        out = np.empty_like(self.x)
-        angular_momentum_z(self.x, self.y, self.vx, self.vy, out)
-        return out
-
-    @property
-    def position(self):
+    def positions(self):
         """(N, 3) positions in the input order, kpc."""
-        out = np.empty((self.x.size, 3))
-        out[self.order] = np.column_stack([self.x, self.y, self.z])
-        return out
+        return self._unsorted(np.column_stack([self.x, self.y, self.z]))
 
-    @property
-    def velocity(self):
+    def velocities(self):
         """(N, 3) velocities in the input order, km/s."""
-        out = np.empty((self.x.size, 3))
-        out[self.order] = np.column_stack([self.vx, self.vy, self.vz])
-        return out
+        return self._unsorted(np.column_stack([self.vx, self.vy, self.vz]))

@@ -89,4 +89,4 @@ def test_orbits_with_a_nan_particle_run_and_stay_nan(default_model, gas_model):
         o = Orbits(pos, vel, model.potential.evaluate, 8, model.potential.force_field())
         o.advance(0.01)
         assert o.nonfinite() == 1
-        assert np.isfinite(o.position[[0, 2]]).all() and np.isnan(o.position[1]).any()
+        assert np.isfinite(o.positions()[[0, 2]]).all() and np.isnan(o.positions()[1]).any()

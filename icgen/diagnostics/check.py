@@ -36,7 +36,7 @@ from scipy import integrate, optimize
 from ..errors import MISSING, ModelError
 from ..frame import POSITION_ERROR_FACTOR, galaxy_frame
 from . import measure
-from .report_plots import CheckResult, row as _row, write_outputs
+from .check_result import CheckResult, row as _row, write_outputs
 from .stability import toomre_q
 
 __all__ = ["N_SIGMA", "check_snapshot", "check_particles", "read_particles", "write_outputs",
