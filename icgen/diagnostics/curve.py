@@ -10,8 +10,7 @@ from astropy import units as u
 from astropy.table import QTable
 from scipy import optimize
 
-BARYONIC_KINDS = ("disk", "bulge", "point_mass", "gas_disk")
-
+from ..kinds import kind_of
 
 def reference_scale_length(model):
     """Scale length (kpc) of the most massive disk, or None without disks."""
@@ -79,7 +78,7 @@ def summarize(model, radii=None, r_search=None):
     for name, comp in model.components.items():
         m = model.enclosed_mass(r, name)
         s.enclosed[name] = [float(x) for x in m]
-        if comp.kind in BARYONIC_KINDS:
+        if not kind_of(comp).dark:
             bary += m
         else:
             dark += m

@@ -48,6 +48,7 @@ import numpy as np
 
 from ..errors import MISSING, ModelError
 from ..frame import galaxy_frame, subset_rows
+from ..kinds import kind_of
 from ..integrate import Orbits
 from ..progress import progress_enabled, stage_bar
 from ..snapshot import check_values, open_snapshot
@@ -57,7 +58,7 @@ from .json_report import json_safe, write_json
 from .measured_profiles import Group, bin_labels, measure_state
 
 __all__ = ["OUTPUTS", "SIGMA_LIMIT", "THRESHOLD", "ENERGY_BAR", "MAX_TIME_GYR",
-           "MIN_STEP_GYR", "UNTRUSTED_STATUS", "NOT_INTEGRATED", "DriftResult",
+           "MIN_STEP_GYR", "UNTRUSTED_STATUS", "DriftResult",
            "run_arguments", "integration_verdict", "measure_run", "drift_rows", "run_drift",
            "drift_snapshot", "subsample"]
 
@@ -83,10 +84,6 @@ MIN_STEP_GYR = 1e-6
 #: Exit status of a run whose integration cannot be trusted (energy error above
 #: ENERGY_BAR, or a non-finite state); 1 is "a drift failed the test", 2 bad input.
 UNTRUSTED_STATUS = 3
-#: Components not integrated, and why (reported with the results).
-NOT_INTEGRATED = {"point_mass": "the fixed centre of the potential",
-                  "gas_disk": "pressure-supported gas: orbits without pressure forces would "
-                              "fall inwards, which says nothing of the model"}
 
 
 # ------------------------------------------------------------------ arguments
@@ -199,19 +196,19 @@ def subsample(parts, total, seed):
 def _layout(model, parts, weights):
     """(groups, pos, vel, skipped): the integrated components as measured-profile
     :class:`Group`s of the concatenated (N, 3) arrays; point masses and gas disks are
-    left out (NOT_INTEGRATED says why)."""
+    left out (their Kind's ``not_integrated`` says why; icgen.kinds)."""
     groups, pos, vel, start, skipped = [], [], [], 0, {}
     for name, p in parts.items():
         comp = model.components.get(name)
         if comp is None:
             raise ModelError("particles", name, "no component of that name in the model")
-        if comp.kind in NOT_INTEGRATED:
-            skipped[name] = NOT_INTEGRATED[comp.kind]
+        if kind_of(comp).not_integrated:
+            skipped[name] = kind_of(comp).not_integrated
             continue
         if p["mass"].size == 0:
             continue
         n = p["mass"].size
-        scale = comp.R_d if comp.kind == "disk" else comp.scale
+        scale = comp.R_d if kind_of(comp).flattened else comp.scale
         pm = float(np.mean(p["mass"])) * weights.get(name, 1.0)
         groups.append(Group(name, comp.kind, slice(start, start + n), pm, scale))
         pos.append(np.asarray(p["position"], float))
@@ -406,7 +403,7 @@ def drift_snapshot(path, duration, sample=None, step=None, seed=None, outputs=OU
         seed = int(snap.attrs["seed"]) if seed is None else seed
         counts = {n: c.count for n, c in snap.components.items()}
         frame = snap.frame()
-        skip = [n for n, k in snap.components.items() if k.kind in NOT_INTEGRATED]
+        skip = [n for n, k in snap.components.items() if kind_of(k).not_integrated]
         rows, weights = subset_rows({n: k for n, k in counts.items() if n not in skip},
                                     sample, seed)
         keys = ("position", "velocity", "mass")

@@ -47,7 +47,7 @@ def midplane_tables(model, r_lo, r_hi):
 
 def _scales(model):
     """Positive scale heights of disks and scale radii of the other components, kpc."""
-    out = [c.z_d if c.kind == "disk" else c.scale for c in model.components.values()]
+    out = [c.scale for c in model.components.values()]      # z_d for disks
     return [s for s in out if s > 0] or [1.0]
 
 

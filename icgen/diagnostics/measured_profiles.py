@@ -16,6 +16,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from ..kinds import kind_of
 from . import measure
 
 __all__ = ["DISK_EDGES", "SPHEROID_RADII", "SPHEROID_SHELLS", "MIN_COUNT", "DISK_QUANTITIES",
@@ -37,8 +38,9 @@ DISK_QUANTITIES = ("surface_density", "median_abs_z", "sigma_R", "sigma_z", "mea
 
 class Group(NamedTuple):
     """One component's particles in a state: rows ``rows`` of the (N, 3) arrays, each of
-    mass ``particle_mass`` (Msun); ``kind`` "disk" (annuli of ``scale`` = R_d, kpc) or a
-    spheroid (radii in ``scale`` = its scale radius, kpc)."""
+    mass ``particle_mass`` (Msun); a disk of ``kind`` (icgen.kinds: flattened) is measured
+    in annuli of ``scale`` = R_d (kpc), a spheroid in radii of ``scale`` = its scale
+    radius (kpc)."""
     name: str
     kind: str
     rows: slice
@@ -115,7 +117,7 @@ def measure_state(groups, pos, vel):
     :class:`Group` of ``groups``."""
     out = {}
     for name, kind, rows, pm, scale in groups:
-        fn = disk_profiles if kind == "disk" else spheroid_profiles
+        fn = disk_profiles if kind_of(kind).flattened else spheroid_profiles
         for q, val in fn(pos[rows], vel[rows], pm, scale).items():
             out[(name, q)] = val
     return out
@@ -124,7 +126,7 @@ def measure_state(groups, pos, vel):
 def bin_labels(kind, scale):
     """(lo, hi) in kpc of each bin of a component's measurements, per quantity (enclosed
     masses: (0, radius))."""
-    if kind == "disk":
+    if kind_of(kind).flattened:
         e = scale * np.asarray(DISK_EDGES)
         return {q: list(zip(e[:-1], e[1:])) for q in DISK_QUANTITIES}
     shells = scale * np.asarray(SPHEROID_SHELLS)

@@ -4,8 +4,8 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
-STYLES = {"halo": ("tab:gray", "--"), "bulge": ("tab:red", "-."), "disk": ("tab:blue", ":"),
-          "gas_disk": ("tab:green", (0, (5, 1))), "point_mass": ("tab:purple", (0, (1, 1)))}
+from ..kinds import kind_of  # noqa: E402
+
 
 
 def plot_rotation_curve(table, kinds, path, summary=None, title=None):
@@ -22,7 +22,7 @@ def plot_rotation_curve(table, kinds, path, summary=None, title=None):
     R = table["radius"].value
     seen = {}
     for name, kind in kinds.items():
-        color, ls = STYLES.get(kind, ("tab:orange", "-"))
+        color, ls = kind_of(kind).style
         n = seen.setdefault(kind, 0)
         seen[kind] += 1
         ax.plot(R, table[f"v_circ_{name}"].value, color=color, ls=ls, lw=1.8,

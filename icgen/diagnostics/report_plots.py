@@ -3,20 +3,23 @@ errors against the model's predictions, drawn from a
 :class:`~icgen.diagnostics.check_result.CheckResult` alone."""
 import numpy as np
 
+from ..kinds import kind_of
+
 PANELS = (3, 3)
 
 
-def _rows(result, quantity, kinds=None):
-    """Rows of one quantity, optionally only for components of the given kinds."""
+def _rows(result, quantity, disks=None):
+    """Rows of one quantity, optionally only of disks (``disks`` True: flattened kinds,
+    False: the others; icgen.kinds)."""
     return [r for r in result.rows if r.quantity == quantity
-            and (kinds is None or result.kinds.get(r.component) in kinds)]
+            and (disks is None or (r.component in result.kinds
+                                   and kind_of(result.kinds[r.component]).flattened == disks))]
 
 
 def _style(result, name):
-    from .plots import STYLES
     if name == "total":
         return "k", "-"
-    return STYLES.get(result.kinds.get(name), ("tab:orange", "-"))
+    return kind_of(result.kinds[name]).style if name in result.kinds else ("k", "-")
 
 
 def _points(ax, row, color, label=None, scale=1.0, marker="o"):
@@ -57,14 +60,13 @@ def _band(ax, n):
     ax.axhline(0, color="0.5", lw=0.8)
 
 
-def _profiles(ax, result, quantity, kinds, ylabel, title):
-    for kind in kinds:
-        for row in _rows(result, quantity, (kind,)):
-            color, _ = _style(result, row.component)
-            _points(ax, row, color, row.component)
+def _profiles(ax, result, quantity, disks, ylabel, title):
+    for row in _rows(result, quantity, disks):
+        color, _ = _style(result, row.component)
+        _points(ax, row, color, row.component)
     ax.set_xscale("log")
     ax.set_yscale("log")
-    ax.set_xlabel("R [kpc]" if "disk" in kinds else "r [kpc]")
+    ax.set_xlabel("R [kpc]" if disks else "r [kpc]")
     ax.set_ylabel(ylabel)
     ax.set_title(title)
     ax.legend(frameon=False, fontsize=7)
@@ -88,15 +90,15 @@ def _vertical(ax, result):
     ax.legend(frameon=False, fontsize=6)
 
 
-def _kinematics(ax, result, keys, kinds, title):
+def _kinematics(ax, result, keys, disks, title):
     markers = "osD^v"
     colors = ["tab:blue", "tab:red", "tab:green", "tab:purple", "tab:brown"]
     for j, key in enumerate(keys):
-        for i, row in enumerate(_rows(result, key, kinds)):
+        for i, row in enumerate(_rows(result, key, disks)):
             label = key if i == 0 else None
             _points(ax, row, colors[j % 5], label, marker=markers[i % 5])
     ax.set_xscale("log")
-    ax.set_xlabel("R [kpc]" if "disk" in kinds else "r [kpc]")
+    ax.set_xlabel("R [kpc]" if disks else "r [kpc]")
     ax.set_ylabel(r"km s$^{-1}$")
     ax.set_title(title)
     ax.legend(frameon=False, fontsize=7)
@@ -134,15 +136,14 @@ def plot_report(result, path):
     a = axes.ravel()
     _rotation_curve(a[0], result)
     _residuals(a[1], result)
-    _profiles(a[2], result, "surface density", ("disk", "gas_disk"),
+    _profiles(a[2], result, "surface density", True,
               r"$\Sigma$ [M$_\odot$ kpc$^{-2}$]", "Disk surface density")
     _vertical(a[3], result)
-    _profiles(a[4], result, "density", ("halo", "bulge"), r"$\rho$ [M$_\odot$ kpc$^{-3}$]",
+    _profiles(a[4], result, "density", False, r"$\rho$ [M$_\odot$ kpc$^{-3}$]",
               "Spheroid densities")
-    _kinematics(a[5], result, ("mean v_phi", "sigma_R", "sigma_phi", "sigma_z"),
-                ("disk", "gas_disk"),
+    _kinematics(a[5], result, ("mean v_phi", "sigma_R", "sigma_phi", "sigma_z"), True,
                 "Disk kinematics")
-    _kinematics(a[6], result, ("sigma_r", "sigma_theta", "sigma_phi"), ("halo", "bulge"),
+    _kinematics(a[6], result, ("sigma_r", "sigma_theta", "sigma_phi"), False,
                 "Spheroid dispersions")
     _toomre(a[7], result)
     _summary(a[8], result)

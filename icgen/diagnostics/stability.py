@@ -38,6 +38,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 from scipy import optimize
 
+from ..kinds import kind_of
 from ..sampling.disk_velocities import TOOMRE_CONSTANT
 from ..sampling.realize import MASS_RATIO_LIMIT
 from ..units import G, critical_density
@@ -204,10 +205,10 @@ def _json_default(x):
 
 
 def disk_sigma_r(model, name, R):
-    """Midplane sigma_R (km/s) of disk ``name`` at R (kpc), from the sampler's law."""
-    from ..sampling.disk_velocities import DiskVelocities
-    vel = DiskVelocities(model.components[name], model.spec.component(name), model.potential)
-    return np.sqrt(vel.moments(np.asarray(R, float), np.zeros(np.size(R)))["sigma_R2"])
+    """Midplane sigma_R (km/s) of disk ``name`` at R (kpc): the moments of the method that
+    samples it (``model.kinematics``)."""
+    R = np.asarray(R, float)
+    return np.sqrt(model.kinematics(name).moments(R, np.zeros_like(R))["sigma_R2"])
 
 
 def disk_stability(model, name):
@@ -278,11 +279,11 @@ def particle_mass_ratios(plans):
 
     plans: sequence of sampling.ComponentPlan. Returns {name: ratio}; empty without disks.
     """
-    disks = [p for p in plans if p.kind == "disk"]
+    disks = [p for p in plans if kind_of(p).stellar_disk]
     if not disks:
         return {}
     light = min(p.particle_mass for p in disks)
-    return {p.name: p.particle_mass / light for p in plans if p.kind in ("halo", "bulge")}
+    return {p.name: p.particle_mass / light for p in plans if kind_of(p).spheroid}
 
 
 def analyse(model, plans=None):
@@ -304,7 +305,7 @@ def analyse(model, plans=None):
         rep.disk_fraction_22 = summary.disk_fraction_22
     count = {p.name: p.count for p in plans}
     rep.halos = [halo_resolution(model, n, count[n])
-                 for n, c in model.components.items() if c.kind == "halo"]
+                 for n, c in model.components.items() if kind_of(c).dark]
     rep.mass_ratios = particle_mass_ratios(plans)
     rep.verdicts = verdicts(rep, model)
     return rep
@@ -387,7 +388,7 @@ def _resolution_verdicts(rep, model):
                    f"particles less (common practice)" if thin else ""),
                 "Power et al. 2003, MNRAS 338, 14, eq. 15"))
     for name, ratio in rep.mass_ratios.items():
-        if model.components[name].kind != "halo":
+        if not kind_of(model.components[name]).dark:
             continue
         ok = ratio <= MASS_RATIO_LIMIT
         out.append(Verdict(

@@ -64,4 +64,4 @@ def _kinematics(model, name):
 
 
 KIND = Kind("disk", "disk", _build, _sampler, _kinematics, flattened=True,
-            style=("tab:blue", "--"))
+            style=("tab:blue", ":"))

@@ -45,5 +45,5 @@ def _kinematics(model, name):
                               model.potential, *spherical_range(model))
 
 
-HALO = Kind("halo", "halo", _build, _sampler, _kinematics, dark=True, style=("k", "-."))
-BULGE = Kind("bulge", "bulge", _build, _sampler, _kinematics, style=("tab:red", ":"))
+HALO = Kind("halo", "halo", _build, _sampler, _kinematics, dark=True, style=("tab:gray", "--"))
+BULGE = Kind("bulge", "bulge", _build, _sampler, _kinematics, style=("tab:red", "-."))

@@ -19,14 +19,13 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import ModelError
+from ..kinds import KINDS, kind_of
 from . import cube as cubes
 from .project import Geometry, Instrument, project_particles
 from .tilted_ring import fit_tilted_rings, major_axis_curve
-from .truth import stellar_moments, truth_table
+from .truth import truth_table
 
-__all__ = ["MockObservation", "observe", "tracer_particles", "OUTPUT_FILES", "TRACER_KINDS"]
-
-TRACER_KINDS = ("disk", "gas_disk")
+__all__ = ["MockObservation", "observe", "tracer_particles", "OUTPUT_FILES"]
 OUTPUT_FILES = {"cube": "cube.fits", "mom0": "mom0.fits", "mom1": "mom1.fits",
                 "rings": "rotation_curve.ecsv", "major_axis": "major_axis.ecsv",
                 "truth": "truth.ecsv", "plot": "mock.png"}
@@ -207,9 +206,10 @@ def _check_tracer(tracer, kinds):
     if tracer not in kinds:
         raise ModelError("--tracer", tracer, f"no such component; there are "
                          f"{', '.join(f'{n} ({k})' for n, k in kinds.items())}")
-    if kinds[tracer] not in TRACER_KINDS:
+    if not kind_of(kinds[tracer]).flattened:
+        disks = [k.name for k in KINDS.values() if k.flattened]
         raise ModelError("--tracer", tracer, f"is a {kinds[tracer]}; the tracer must be a "
-                         f"disk component (kind {' or '.join(TRACER_KINDS)})")
+                         f"disk component (kind {' or '.join(disks)})")
 
 
 def line_widths(particles, kind, model, tracer, instrument):
@@ -224,7 +224,7 @@ def line_widths(particles, kind, model, tracer, instrument):
     n = particles["mass"].size
     if instrument.line_width is not None:
         return np.full(n, instrument.line_width)
-    if kind == "gas_disk":
+    if kind_of(kind).pressure:
         return np.full(n, float(model.components[tracer].cs))
     return np.zeros(n)
 
@@ -240,7 +240,7 @@ def observe(source, geometry, instrument=None, tracer="disk", model=None, seed=0
     instrument : Instrument, optional
         Default ``Instrument()`` (12 arcsec beam, 4 arcsec pixels, 5 km/s channels, no noise).
     tracer : str
-        Component observed; its kind must be "disk" or "gas_disk".
+        Component observed; its kind must be a disk's ("disk" or "gas_disk").
     model : MassModel, optional
         The truth; default the model stored in the snapshot.
     seed : int
@@ -258,7 +258,7 @@ def observe(source, geometry, instrument=None, tracer="disk", model=None, seed=0
     if not isinstance(geometry, Geometry) or not isinstance(instrument, Instrument):
         raise ModelError("geometry", type(geometry).__name__, "must be a Geometry and an Instrument")
     particles, kind, model, frame = tracer_particles(source, tracer, model)
-    moments = stellar_moments(model, tracer) if kind == "disk" else None
+    moments = model.kinematics(tracer) if kind_of(kind).stellar_disk else None
     sigma = line_widths(particles, kind, model, tracer, instrument)
     east, north, v_los = project_particles(particles["position"], particles["velocity"], geometry)
     scale = geometry.kpc_per_arcsec

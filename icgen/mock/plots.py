@@ -8,7 +8,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from ..diagnostics.plots import STYLES  # noqa: E402
+from ..kinds import kind_of  # noqa: E402
 
 __all__ = ["plot_mock", "ring_outline"]
 
@@ -80,7 +80,7 @@ def _decomposition(ax, obs):
     c = obs.model_curve
     R = c["radius"].value
     for name, kind in obs.kinds.items():
-        color, ls = STYLES.get(kind, ("tab:orange", "-"))
+        color, ls = kind_of(kind).style
         ax.plot(R, c[f"v_circ_{name}"].value, color=color, ls=ls, lw=1.6, label=name)
     ax.plot(R, c["v_circ_total"].value, color="k", lw=2.2, label="total")
     ax.errorbar(obs.rings["radius"].value, obs.rings["v_rot"].value,

@@ -14,18 +14,7 @@ import astropy.units as u
 
 from ..diagnostics.measure import cylindrical
 
-__all__ = ["truth_table", "stellar_moments"]
-
-
-def stellar_moments(model, tracer):
-    """Jeans-moment calculator of a stellar disk component (None for other kinds)."""
-    from ..sampling.disk_velocities import DiskVelocities
-
-    comp = model.components[tracer]
-    if comp.kind != "disk":
-        return None
-    spec = next(s for s in model.spec.components if s.name == tracer)
-    return DiskVelocities(comp, spec, model.potential)
+__all__ = ["truth_table"]
 
 
 # v_c at particle radii from a log-spaced table: linear interpolation errs by ~h^2/8 times
@@ -67,7 +56,8 @@ def truth_table(model, tracer, particles, edges, beam_kpc, moments=None):
         Ring edges, kpc.
     beam_kpc : float
         Beam FWHM at the galaxy's distance, kpc.
-    moments : DiskVelocities, optional
+    moments : disk kinematics, optional
+        ``model.kinematics(tracer)`` of a stellar disk (its ``moments(R, z)``).
         For the model's Jeans prediction of the mean v_phi (stellar disks).
 
     Returns

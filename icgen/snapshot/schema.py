@@ -4,7 +4,7 @@ directions, and the file-size estimate (docs/snapshot-format.md describes the fo
 Layout::
 
     /                      attrs: ROOT_KEYS (+ ROOT_VECTORS from version 2 on)
-    /particles/<name>/     DATASETS (+ GAS_DATASETS for kind GAS_KIND)
+    /particles/<name>/     DATASETS (+ GAS_DATASETS for kinds with a pressure: gas)
                            attrs: GROUP_ATTRS
     /model/rotation_curve/ radius (M,), v_circ_total (M,), v_circ_<name> (M,)
 
@@ -19,10 +19,11 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import ModelError
+from ..kinds import kind_of
 from ..units import unit_scale
 
 __all__ = ["SCHEMA", "SCHEMA_VERSION", "READABLE_VERSIONS", "PRECISIONS", "COMPRESSIONS",
-           "ID_DTYPE", "GAS_KIND", "FIRST_ID", "H5_CHUNK_ROWS", "ROOT_KEYS", "ROOT_VECTORS",
+           "ID_DTYPE", "FIRST_ID", "H5_CHUNK_ROWS", "ROOT_KEYS", "ROOT_VECTORS",
            "GROUP_ATTRS", "DATASETS", "GAS_DATASETS", "CURVE_GROUP", "SPEED_OF_LIGHT",
            "FileUnits", "datasets", "first_ids", "gravitational_constant", "check_format",
            "check_output_units", "estimate_file_size"]
@@ -37,7 +38,6 @@ PRECISIONS = {"single": "<f4", "double": "<f8"}
 COMPRESSIONS = ("gzip", "lzf")
 ID_DTYPE = "<u8"
 #: Component kind whose particles also carry a specific internal energy.
-GAS_KIND = "gas_disk"
 #: Ids run FIRST_ID.. over the whole file in component order; 0 is left unused because
 #: some simulation codes read id 0 as "no particle" (common practice, from memory).
 FIRST_ID = 1
@@ -56,7 +56,8 @@ GROUP_ATTRS = ("kind", "count", "total_mass")
 #: kind): "f" the file's float type, "u" the ids' unsigned integer.
 DATASETS = {"position": ((3,), "f"), "velocity": ((3,), "f"), "mass": ((), "f"),
             "id": ((), "u")}
-#: GAS_KIND's extra dataset: specific internal energy, in velocity_unit^2.
+#: The extra dataset of a kind with a pressure (icgen.kinds): specific internal energy, in
+#: velocity_unit^2.
 GAS_DATASETS = {"internal_energy": ((), "f")}
 #: The analytic rotation curve: radius, v_circ_total and v_circ_<name>, float64.
 CURVE_GROUP = "model/rotation_curve"
@@ -84,7 +85,7 @@ _CURVE_POINTS_BOUND = 1000
 
 def datasets(kind):
     """Datasets of a particle group of this component kind: name -> (tail, dtype kind)."""
-    return dict(DATASETS, **(GAS_DATASETS if kind == GAS_KIND else {}))
+    return dict(DATASETS, **(GAS_DATASETS if kind_of(kind).pressure else {}))
 
 
 def first_ids(counts):
