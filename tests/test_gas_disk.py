@@ -9,7 +9,7 @@ from conftest import model_from_components
 from icgen.spec import load_spec
 from icgen.errors import ModelError
 from icgen.model import MassModel
-from icgen.sampling.gas import GasSampler, gas_rotation
+from icgen.samplers.gas import GasSampler, gas_rotation
 from icgen.units import G
 from reference.ring_quadrature import ring_potential_forces
 

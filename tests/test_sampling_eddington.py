@@ -5,8 +5,9 @@ from scipy import integrate
 
 from conftest import model_from_components, uncut_mass
 from icgen.errors import ModelError
-from icgen.sampling import eddington, realize
-from icgen.sampling import spheroid_velocities as sv
+from icgen.samplers import eddington
+from icgen.sampling import realize
+from icgen.samplers import spheroid_velocities as sv
 from icgen.units import G
 
 # A far outer cut: the uncut Hernquist law holds all but 4e-4 of its mass inside 5000 a

@@ -5,8 +5,8 @@ from scipy import integrate, optimize, special, stats
 
 from conftest import model_from_components
 from icgen import sampling
-from icgen.sampling.positions import (RadialCdf, exponential_disk_radius,
-                                      isotropic_directions, vertical_offset)
+from icgen.samplers.positions import (RadialCdf, exponential_disk_radius,
+                                      isotropic_directions, vertical_offset, SpheroidPositions)
 
 # Deviates that include the extremes the block generator can produce (2^-54, 1 - 2^-54).
 U_EDGES = np.array([2.0**-54, 1e-12, 1e-6, 0.01, 0.3, 0.5, 0.7, 0.99, 1 - 1e-9, 1 - 2.0**-53])
@@ -76,7 +76,7 @@ def test_truncated_nfw_radii_match_the_profile_enclosed_mass():
                                          "mass": "1e12 Msun", "concentration": 10,
                                          "particles": 1000}})
     halo = model.components["h"]
-    pos = sampling.positions.SpheroidPositions(halo)
+    pos = SpheroidPositions(halo)
     u = np.array([1e-6, 0.01, 0.3, 0.7, 0.95, 0.999])
     m = halo.enclosed_mass(pos.radius(u)) / halo.enclosed_mass(halo.extent)
     np.testing.assert_allclose(m, u, rtol=1e-4)

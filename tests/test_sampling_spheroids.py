@@ -7,7 +7,7 @@ from scipy.special import spence
 from conftest import model_from_components, uncut_mass
 from icgen import sampling
 from icgen.sampling import realize
-from icgen.sampling.spheroid_velocities import jeans_sigma_r2
+from icgen.samplers.spheroid_velocities import jeans_sigma_r2
 from icgen.units import G
 
 # A far outer cut: the uncut Hernquist law holds all but 4e-4 of its mass inside 5000 a

@@ -4,7 +4,7 @@ Published criteria (each formula is a small pure function below):
 
 - Toomre (1964, ApJ 139, 1217): Q = sigma_R kappa / (3.36 G Sigma); Q < 1 is locally
   unstable to axisymmetric perturbations. sigma_R(R) is the model's own prescription
-  (icgen.sampling.disk_velocities), taken in the midplane.
+  (icgen.samplers.disk_velocities), taken in the midplane.
 - Toomre (1981, in "The Structure and Evolution of Normal Galaxies", eds. Fall &
   Lynden-Bell, p. 111, page from memory): swing-amplification parameter
   X_m = kappa^2 R / (2 pi G Sigma m); for a flat rotation curve 1 < X_2 < 3 gives strong
@@ -39,7 +39,7 @@ import numpy as np
 from scipy import optimize
 
 from ..kinds import kind_of
-from ..sampling.disk_velocities import TOOMRE_CONSTANT
+from ..samplers.disk_velocities import TOOMRE_CONSTANT
 from ..sampling.realize import MASS_RATIO_LIMIT
 from ..units import G, critical_density
 

@@ -19,7 +19,7 @@ class Sampler(Protocol):
 
     def draw(self, u: np.ndarray) -> tuple:
         """(position (n, 3) kpc, velocity (n, 3) km/s, clamped (n,) bool or None) from
-        uniform deviates u (n, sampling.seeds.DIMENSIONS). A sampler with an attribute
+        uniform deviates u (n, samplers.seeds.DIMENSIONS). A sampler with an attribute
         ``internal_energy`` ((km/s)^2) gives every particle that specific energy."""
 
 

@@ -9,8 +9,8 @@ import numpy as np
 
 from ..errors import ModelError, did_you_mean
 from ..profiles.disk import ExponentialDisk
-from ..sampling import disk_velocities
-from ..sampling.positions import DiskPositions
+from ..samplers import disk_velocities
+from ..samplers.positions import DiskPositions
 from .base import Kind
 
 #: name -> (velocity sampler class, kinematics class); each called (disk, spec, potential).
@@ -32,7 +32,7 @@ def method(spec):
 
 
 class DiskSampler:
-    """Positions (icgen.sampling.positions) and the method's velocities, in Cartesians."""
+    """Positions (icgen.samplers.positions) and the method's velocities, in Cartesians."""
 
     def __init__(self, disk, spec, potential):
         self.positions = DiskPositions(disk)

@@ -2,7 +2,7 @@
 equilibrium in the potential of every component, itself included, solved after the
 others; pressure-supported rotation and an internal energy."""
 from ..potential.gas_solver import solve_gas
-from ..sampling.gas import GasKinematics, GasSampler
+from ..samplers.gas import GasKinematics, GasSampler
 from .base import Kind
 
 

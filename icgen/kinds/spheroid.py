@@ -2,8 +2,8 @@
 inverse CDF, velocities from the Eddington (or Osipkov-Merritt) distribution function or
 the Jeans-Maxwellian option in the spherically averaged total potential."""
 from ..profiles.spheroid import TruncatedSpheroid, make_spheroid
-from ..sampling.positions import SpheroidPositions
-from ..sampling.spheroid_velocities import (TABLE_INNER_FRACTION, TABLE_OUTER_FACTOR,
+from ..samplers.positions import SpheroidPositions
+from ..samplers.spheroid_velocities import (TABLE_INNER_FRACTION, TABLE_OUTER_FACTOR,
                                             SpheroidKinematics, SpheroidVelocities)
 from .base import Kind
 
@@ -20,7 +20,7 @@ def spherical_range(model):
 
 
 class SpheroidSampler:
-    """Radii and directions (icgen.sampling.positions) and velocities."""
+    """Radii and directions (icgen.samplers.positions) and velocities."""
 
     def __init__(self, comp, spec, table):
         self.positions = SpheroidPositions(comp)

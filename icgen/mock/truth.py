@@ -6,7 +6,7 @@ ring (cylindrical radius, all heights), the mass-weighted mean v_phi, its standa
 and the velocity dispersions. v_circ_ring - v_phi_mean is the asymmetric drift
 (Binney & Tremaine 2008, eq. 4.228) that a rotation curve measured from a warm tracer
 carries. For a stellar disk the model's own Jeans prediction of the midplane mean v_phi
-(icgen.sampling.disk_velocities) is given as well.
+(icgen.samplers.disk_velocities) is given as well.
 """
 import numpy as np
 from astropy.table import QTable

@@ -14,18 +14,9 @@ Particles are bit-identical for a given model seed whatever the chunk size or th
 of numba threads. Options: ``quiet_start`` (scrambled Sobol points) and ``mirror``
 (each particle followed by its point reflection).
 """
-from .seeds import BLOCK_SIZE
+from ..samplers.seeds import BLOCK_SIZE
+from .realize import (ComponentPlan, ParticleChunk, SamplingReport, SamplingWarning,
+                      center_of_mass, iter_chunks, particles, plan, sample)
 
-_REALIZE = ("ComponentPlan", "ParticleChunk", "SamplingReport", "SamplingWarning",
-            "center_of_mass", "iter_chunks", "particles", "plan", "sample")
-__all__ = list(_REALIZE) + ["BLOCK_SIZE"]
-
-
-def __getattr__(name):
-    # The package holds the per-kind samplers (a layer below icgen.kinds) and realize
-    # (above it: it asks the registry for each component's sampler); realize's names are
-    # handed on when first asked for, so that importing a sampler does not import realize.
-    if name in _REALIZE:
-        from . import realize
-        return getattr(realize, name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+__all__ = ["ComponentPlan", "ParticleChunk", "SamplingReport", "SamplingWarning",
+           "center_of_mass", "iter_chunks", "particles", "plan", "sample", "BLOCK_SIZE"]

@@ -17,8 +17,8 @@ from .. import defaults
 from ..errors import ModelError, MISSING
 from ..kinds import kind_of
 from ..kinds.spheroid import spherical_range
-from . import seeds
-from .spheroid_velocities import radial_table
+from ..samplers import seeds
+from ..samplers.spheroid_velocities import radial_table
 
 # Halo particles heavier than this many disk particles heat the disk numerically
 # (Ludlow et al. 2019, MNRAS 488, L123); common practice is to stay below ~5.
@@ -162,7 +162,7 @@ _CACHE = weakref.WeakKeyDictionary()
 
 class SharedTables:
     """Tables that several components' samplers share, made on first use: the spherically
-    averaged total potential of the spheroids (icgen.sampling.spheroid_velocities)."""
+    averaged total potential of the spheroids (icgen.samplers.spheroid_velocities)."""
 
     def __init__(self, model):
         self.model = model
