@@ -2,7 +2,7 @@
 
 Main entry points: :func:`load_model` (model file or dict -> :class:`MassModel`).
 """
-__version__ = "0.1.0"
+from .version import __version__
 
 
 def __getattr__(name):

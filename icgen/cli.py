@@ -22,7 +22,8 @@ import os
 import sys
 from contextlib import contextmanager
 
-from . import __version__, paths
+from . import paths
+from .version import __version__
 from .cli_options import parse_number, parse_positive, parse_time, parse_whole
 from .errors import ModelError
 

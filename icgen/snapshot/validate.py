@@ -37,7 +37,7 @@ from dataclasses import dataclass
 import h5py
 import numpy as np
 
-from .. import __version__
+from ..version import __version__
 from ..spec import MAX_MODEL_BYTES, spec_from_dict
 from ..errors import MISSING, ModelError, show_value
 from .schema import (CURVE_GROUP, GROUP_ATTRS, READABLE_VERSIONS, ROOT_KEYS, ROOT_VECTORS,

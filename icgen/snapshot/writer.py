@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 import h5py
 import numpy as np
 
-from .. import __version__
+from ..version import __version__
 from ..errors import ModelError
 from ..paths import OutputWriteError, describe_os_error, format_bytes, partial_path
 from .diskfile import DiskFile
