@@ -450,7 +450,7 @@ def cmd_mock(args):
     from .mock.observation import OUTPUT_FILES
 
     paths.check_folder_target(args.output, "--output", OUTPUT_FILES.values(),
-                              inputs=[args.snapshot])
+                              overwrite=args.overwrite, inputs=[args.snapshot])
     return run_mock(args)
 
 

@@ -31,7 +31,6 @@ Published criteria (each formula is a small pure function below):
 
 Units: kpc, km/s, Msun, (km/s)/kpc.
 """
-import json
 import math
 from dataclasses import asdict, dataclass, field
 
@@ -42,6 +41,7 @@ from ..kinds import kind_of
 from ..samplers.disk_velocities import TOOMRE_CONSTANT
 from ..sampling.realize import MASS_RATIO_LIMIT
 from ..units import G, critical_density
+from .json_report import write_json
 
 # Local axisymmetric stability threshold (Toomre 1964).
 Q_THRESHOLD = 1.0
@@ -194,14 +194,7 @@ class StabilityReport:
         return asdict(self)
 
     def write_json(self, path):
-        with open(path, "w", encoding="utf-8") as fh:
-            json.dump(self.to_dict(), fh, indent=1, allow_nan=False, default=_json_default)
-
-
-def _json_default(x):
-    if isinstance(x, np.generic):
-        return x.item()
-    raise TypeError(f"not JSON serialisable: {type(x).__name__}")
+        write_json(self.to_dict(), path)
 
 
 def disk_sigma_r(model, name, R):

@@ -51,20 +51,6 @@ def add_arguments(p):
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
 
-def _check_folder(folder, overwrite):
-    """Folder to write into: an existing one, or a new one whose parent exists."""
-    from .observation import output_paths
-
-    if os.path.isdir(folder):
-        output_paths(folder, overwrite)
-        return
-    if os.path.exists(folder):
-        raise ModelError("--output", folder, "is a file; give a folder for the mock files")
-    parent = os.path.dirname(os.path.abspath(folder))
-    if not os.path.isdir(parent):
-        raise ModelError("--output", folder, f"parent folder {parent!r} does not exist")
-
-
 def run(args):
     """Run ``icgen mock``; every check happens before anything is written."""
     from .observation import OUTPUT_FILES, observe
@@ -80,7 +66,6 @@ def run(args):
                                       args.clip, args.field, args.line_width)
     free = tuple(k.strip() for k in args.fit_params.split(",") if k.strip())
     check_geometry_options(args.fit_geometry, free)
-    _check_folder(args.output, args.overwrite)
     obs = observe(args.snapshot, geometry, instrument, tracer=args.tracer, seed=args.seed,
                   fit_geometry=args.fit_geometry, free=free, expansion=args.expansion)
     os.makedirs(args.output, exist_ok=True)

@@ -31,14 +31,13 @@ attribute or dataset, and the rule (exit status 2 in the CLI).
 """
 import math
 import os
-import tomllib
 from dataclasses import dataclass
 
 import h5py
 import numpy as np
 
 from ..version import __version__
-from ..spec import MAX_MODEL_BYTES, spec_from_dict
+from ..spec import spec_from_stored_text
 from ..errors import MISSING, ModelError, show_value
 from .schema import (CURVE_GROUP, GROUP_ATTRS, READABLE_VERSIONS, ROOT_KEYS, ROOT_VECTORS,
                      SCHEMA, FileUnits, datasets)
@@ -197,29 +196,14 @@ def _root_attrs(f, path):
     return attrs, units
 
 
-#: Keys renamed since: {old key: new key}. A stored config is what icgen itself wrote, so it
-#: is read with the names of its time (a model file with an old key is an error that names
-#: the new one).
-_RENAMED_KEYS = {"spin": "retrograde_flip_fraction"}
-
-
 def _stored_spec(config, path):
     """ModelSpec from the ``config`` attribute; a bad one names the attribute."""
     source = f"{path} attribute config"
-    if len(config) > MAX_MODEL_BYTES:
-        raise ModelError(source, MISSING, f"is {len(config) / 1e6:.3g} MB of text; a model "
-                                          f"file holds at most {MAX_MODEL_BYTES / 1e6:g} MB")
     try:
-        data = tomllib.loads(config)
-    except ValueError as exc:  # TOMLDecodeError, or an integer literal too long to convert
-        raise ModelError(source, MISSING, f"not valid TOML: {exc}") from None
-    for table in (data.get("components") or {}).values():
-        for old, new in _RENAMED_KEYS.items():
-            if isinstance(table, dict) and old in table and new not in table:
-                table[new] = table.pop(old)
-    try:
-        return spec_from_dict(data)
+        return spec_from_stored_text(config, source)
     except ModelError as exc:
+        if exc.key == source:
+            raise
         raise ModelError(source, MISSING, f"not a valid model: {exc}") from None
 
 

@@ -12,7 +12,7 @@ from icgen.units import parse_quantity
 
 from .fields import VALUE_KINDS, check_component_count, check_component_name, choice
 from .model import KINDS, MODEL_KEYS, OUTPUT_KEYS, SPEC_CLASSES, ModelSpec, OutputSpec
-from .toml_text import dotted_key, load_dict, parse_toml, reject_unknown
+from .toml_text import RENAMED, dotted_key, load_dict, parse_toml, reject_unknown
 
 DEFAULT_MODEL_NAME = "unnamed model"
 DEFAULT_SEED = 1
@@ -86,3 +86,15 @@ def spec_from_toml_text(text, source="<string>"):
 def load_spec(path=None):
     """Load a TOML model file (str or PathLike; ``None``: the default) as a :class:`ModelSpec`."""
     return spec_from_dict(load_dict(path))
+
+
+def spec_from_stored_text(text, source):
+    """The spec of a model icgen itself wrote (a snapshot's stored config): TOML text read
+    with the key names of its time (RENAMED keys take their new names; in a model file an
+    old key is an error that names the new one)."""
+    data = parse_toml(text, source)
+    for table in (data.get("components") or {}).values():
+        for old, (new, _) in RENAMED.items():
+            if isinstance(table, dict) and old in table and new not in table:
+                table[new] = table.pop(old)
+    return spec_from_dict(data)

@@ -84,7 +84,7 @@ class ModelSpec:
         names = set()
         for spec in self.components:
             if not isinstance(spec, _SPEC_TYPES):
-                rule = "each must be a DiskSpec, SpheroidSpec or PointMassSpec"
+                rule = "each must be a DiskSpec, SpheroidSpec, GasDiskSpec or PointMassSpec"
                 raise ModelError("components", spec, rule)
             if spec.name in names:
                 raise ModelError("components", spec.name, "component names must be unique")
